@@ -1,0 +1,178 @@
+"""Keplerian orbit kernel: elements -> sky positions and line-of-sight velocity.
+
+Pure, vectorised numpy functions in internal units (mas, Julian yr, au, pc,
+solar masses, km/s, angles in radians).  Conventions (``shared/physics.md``
+section 2, the standard visual-binary convention):
+
+* ``east`` is the offset toward east (Delta RA cos dec), ``north`` toward north;
+* z points away from the observer, a positive radial velocity is receding;
+* the ascending node is where the star crosses the sky plane moving away from
+  the observer; ``node`` is its position angle (north through east), the
+  argument of pericentre is measured from it in the direction of motion, and
+  inc < 90 deg means the position angle increases with time.
+"""
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .constants import KEPLER_K, KMS_PER_AU_PER_YR
+from .kepler import solve_kepler
+
+__all__ = [
+    "period_from_a",
+    "a_from_period",
+    "thiele_innes",
+    "kepler_xy",
+    "OrbitTrack",
+    "keplerian_track",
+]
+
+
+def period_from_a(a_mas, mass, distance):
+    """Orbital period from Kepler's third law.
+
+    Parameters
+    ----------
+    a_mas : array_like
+        Angular semi-major axis in mas.
+    mass : array_like
+        Central mass in solar masses.
+    distance : array_like
+        Distance in pc.
+
+    Returns
+    -------
+    ndarray
+        Period in Julian years.
+
+    Notes
+    -----
+    P^2 = k (a[arcsec] R0[pc])^3 / M with k = 4 pi^2 au^3 / (GM_sun yr^2);
+    a[au] = a[arcsec] R0[pc] exactly (small-angle identity).
+    """
+    a_au = np.asarray(a_mas) * 1e-3 * np.asarray(distance)
+    return np.sqrt(KEPLER_K * a_au**3 / np.asarray(mass))
+
+
+def a_from_period(period, mass, distance):
+    """Angular semi-major axis (mas) from the period (yr), mass (Msun), distance (pc)."""
+    a_au = np.cbrt(np.asarray(period) ** 2 * np.asarray(mass) / KEPLER_K)
+    return a_au / np.asarray(distance) * 1e3
+
+
+def thiele_innes(a, inc, node, peri_arg):
+    """Thiele-Innes constants A, B, F, G, C, H (same unit as ``a``).
+
+    Parameters
+    ----------
+    a : array_like
+        Semi-major axis (any length or angle unit).
+    inc, node, peri_arg : array_like
+        Inclination, position angle of the ascending node and argument of
+        pericentre, in radians.
+
+    Returns
+    -------
+    tuple of ndarray
+        ``(A, B, F, G, C, H)`` such that north = A X + F Y, east = B X + G Y,
+        z = C X + H Y (z away from the observer).
+    """
+    cw, sw = np.cos(peri_arg), np.sin(peri_arg)
+    cn, sn = np.cos(node), np.sin(node)
+    ci, si = np.cos(inc), np.sin(inc)
+    A = a * (cw * cn - sw * sn * ci)
+    B = a * (cw * sn + sw * cn * ci)
+    F = a * (-sw * cn - cw * sn * ci)
+    G = a * (-sw * sn + cw * cn * ci)
+    C = a * sw * si
+    H = a * cw * si
+    return A, B, F, G, C, H
+
+
+def kepler_xy(t, period, ecc, t_peri):
+    """Position and velocity in the orbital plane, in units of a.
+
+    Parameters
+    ----------
+    t : array_like
+        Epochs (Julian yr).
+    period : array_like
+        Period (yr).
+    ecc : array_like
+        Eccentricity.
+    t_peri : array_like
+        Epoch of pericentre (Julian yr).
+
+    Returns
+    -------
+    X, Y, dX, dY : ndarray
+        X = cos E - e, Y = sqrt(1 - e^2) sin E and their time derivatives
+        (per yr).
+    """
+    n = 2.0 * np.pi / period
+    mean_anom = n * (np.asarray(t) - t_peri)
+    _, sin_e, cos_e = solve_kepler(mean_anom, ecc)
+    root = np.sqrt(1.0 - ecc * ecc)
+    denom = n / (1.0 - ecc * cos_e)
+    return cos_e - ecc, root * sin_e, -sin_e * denom, root * cos_e * denom
+
+
+@dataclass(frozen=True)
+class OrbitTrack:
+    """Positions and velocities of a star relative to the central mass.
+
+    Attributes
+    ----------
+    east, north, z : ndarray
+        Offsets from the mass in mas (z away from the observer, in mas at the
+        distance of the mass).
+    v_east, v_north : ndarray
+        Proper motion relative to the mass in mas/yr.
+    v_z : ndarray
+        Line-of-sight velocity relative to the mass in km/s (receding > 0).
+    """
+
+    east: np.ndarray
+    north: np.ndarray
+    z: np.ndarray
+    v_east: np.ndarray
+    v_north: np.ndarray
+    v_z: np.ndarray
+
+
+def keplerian_track(t, a, ecc, inc, node, peri_arg, t_peri, period, distance):
+    """Keplerian sky track and radial velocity, broadcast over all inputs.
+
+    Parameters
+    ----------
+    t : array_like
+        Epochs (Julian yr, the emission epochs).
+    a : array_like
+        Angular semi-major axis (mas).
+    ecc : array_like
+        Eccentricity.
+    inc, node, peri_arg : array_like
+        Angles in radians.
+    t_peri : array_like
+        Epoch of pericentre (Julian yr).
+    period : array_like
+        Period (yr).
+    distance : array_like
+        Distance (pc), converts angular rates into km/s.
+
+    Returns
+    -------
+    OrbitTrack
+    """
+    X, Y, dX, dY = kepler_xy(t, period, ecc, t_peri)
+    A, B, F, G, C, H = thiele_innes(a, inc, node, peri_arg)
+    mas_per_yr_to_kms = np.asarray(distance) * 1e-3 * KMS_PER_AU_PER_YR
+    return OrbitTrack(
+        east=B * X + G * Y,
+        north=A * X + F * Y,
+        z=C * X + H * Y,
+        v_east=B * dX + G * dY,
+        v_north=A * dX + F * dY,
+        v_z=(C * dX + H * dY) * mas_per_yr_to_kms,
+    )
