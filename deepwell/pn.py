@@ -168,6 +168,12 @@ def _sweep(y0, h, taus, idx, pars, inv_c, A, B, out_pos, out_vel, out_t):
         _rhs(yb, gm, k_pn, gm_ext, b2, alpha, fb)
         obs_a = ya[6] + ya[2] * inv_c
         obs_b = yb[6] + yb[2] * inv_c
+        if not np.isfinite(obs_b):  # bad input (e >= 1, NaN): flag, never loop forever
+            for m in range(i, n):
+                out_pos[idx[m], :] = np.nan
+                out_vel[idx[m], :] = np.nan
+                out_t[idx[m]] = np.nan
+            return
         while i < n and (taus[i] - obs_b) * sign <= 0.0:
             theta = (taus[i] - obs_a) / (obs_b - obs_a)
             ht = yb[6] - ya[6]
@@ -199,6 +205,17 @@ def _integrate_all(y0, hs, taus, order, pars, inv_c, A, B, out_pos, out_vel, out
                out_pos[o], out_vel[o], out_t[o])
 
 
+def _check_plummer(m_ext, b_ext):
+    """Scale radius to use: b_ext, or a dummy 1 when there is no extended mass."""
+    if b_ext is None:
+        if np.any(np.asarray(m_ext) != 0.0):
+            raise ValueError("b_ext is required when the extended mass is non-zero")
+        return 1.0
+    if np.any(np.asarray(b_ext) <= 0.0):
+        raise ValueError("b_ext must be positive")
+    return b_ext
+
+
 def _s_step(r0, v0, gm, alpha, steps_per_orbit):
     """Step in s: the osculating Kepler orbit's s-period / steps_per_orbit."""
     r = np.linalg.norm(r0, axis=-1)
@@ -213,7 +230,7 @@ def _s_step(r0, v0, gm, alpha, steps_per_orbit):
     return period * a ** (-alpha) * mean_g / steps_per_orbit
 
 
-def integrate_orbits(t_eval, r0, v0, t0, gm, f_sp=1.0, gm_ext=0.0, b_ext=1.0,
+def integrate_orbits(t_eval, r0, v0, t0, gm, f_sp=1.0, gm_ext=0.0, b_ext=None,
                      light_time=False, steps_per_orbit=96, alpha=1.5):
     """Integrate 1PN test-particle orbits around a point mass and a Plummer sphere.
 
@@ -230,7 +247,8 @@ def integrate_orbits(t_eval, r0, v0, t0, gm, f_sp=1.0, gm_ext=0.0, b_ext=1.0,
     f_sp : array_like
         Factor on the 1PN terms (0 Newtonian, 1 general relativity).
     gm_ext, b_ext : array_like
-        GM (au^3/yr^2) and scale radius (au, > 0) of the Plummer sphere.
+        GM (au^3/yr^2) and scale radius (au, > 0; required if any ``gm_ext``
+        is non-zero) of the Plummer sphere.
     light_time : bool
         If True, ``t_eval`` are observed epochs and the states are returned at
         the emission epochs t_em solving t_em + z(t_em)/c = t_eval.
@@ -258,6 +276,7 @@ def integrate_orbits(t_eval, r0, v0, t0, gm, f_sp=1.0, gm_ext=0.0, b_ext=1.0,
     Hairer, Norsett & Wanner 1993, Solving ODEs I, 2nd ed., sect. II.10 (DOP853).
     Sundman 1913, Acta Math. 36, 105 (time transformation).
     """
+    b_ext = _check_plummer(gm_ext, b_ext)
     single = np.ndim(r0) == 1
     r0 = np.atleast_2d(np.asarray(r0, dtype=float))
     v0 = np.atleast_2d(np.asarray(v0, dtype=float))
@@ -267,8 +286,8 @@ def integrate_orbits(t_eval, r0, v0, t0, gm, f_sp=1.0, gm_ext=0.0, b_ext=1.0,
     t_eval = np.broadcast_to(t_eval, (n_orb, t_eval.shape[-1]))
     t0, gm, f_sp, gm_ext, b_ext = (np.broadcast_to(np.asarray(p, dtype=float), (n_orb,))
                                    for p in (t0, gm, f_sp, gm_ext, b_ext))
-    if np.any(b_ext <= 0.0):
-        raise ValueError("b_ext must be positive")
+    if not np.all(np.isfinite(t_eval)):
+        raise ValueError("t_eval must be finite")
     inv_c = 1.0 / C_AU_PER_YR if light_time else 0.0
     y0 = np.concatenate([r0, v0, np.zeros((n_orb, 1))], axis=1)
     pars = np.stack([gm, f_sp / C_AU_PER_YR**2, gm_ext, b_ext**2,
@@ -324,7 +343,7 @@ def pn_track(t, a_au, e, inc, node, peri_arg, t_peri, mass, t_ref, f_sp=1.0,
 
     Parameters
     ----------
-    t : array_like, shape (n_epochs,) or element_shape + (n_epochs,)
+    t : array_like, scalar, shape (n_epochs,) or element_shape + (n_epochs,)
         Epochs (Julian yr): emission epochs, or observed epochs if ``light_time``.
     a_au, e, inc, node, peri_arg, t_peri : array_like
         Osculating Keplerian elements at ``t_ref`` (au, radians, Julian yr),
@@ -355,10 +374,7 @@ def pn_track(t, a_au, e, inc, node, peri_arg, t_peri, mass, t_ref, f_sp=1.0,
     one at ``t_ref``; the integrated period and pericentre epochs differ from
     the Keplerian ones at order GM/(c^2 a) (physics.md sect. 6).
     """
-    if b_ext is None:
-        if np.any(np.asarray(m_ext) != 0.0):
-            raise ValueError("b_ext is required when m_ext is non-zero")
-        b_ext = 1.0
+    b_ext = _check_plummer(m_ext, b_ext)
     elems = np.broadcast_arrays(*(np.asarray(p, dtype=float) for p in
                                   (a_au, e, inc, node, peri_arg, t_peri, mass, t_ref,
                                    f_sp, m_ext, b_ext)))
@@ -366,13 +382,16 @@ def pn_track(t, a_au, e, inc, node, peri_arg, t_peri, mass, t_ref, f_sp=1.0,
     a_au, e, inc, node, peri_arg, t_peri, mass, t_ref, f_sp, m_ext, b_ext = (
         p.ravel() for p in elems)
     t = np.asarray(t, dtype=float)
+    scalar_t = t.ndim == 0
+    t = np.atleast_1d(t)
     t_flat = np.broadcast_to(t, shape + t.shape[-1:]).reshape(-1, t.shape[-1])
     r0, v0 = osculating_state(a_au, e, inc, node, peri_arg, t_peri, t_ref, mass)
     st = integrate_orbits(t_flat, r0, v0, t_ref, mass * GM_SUN_AU3_PER_YR2, f_sp=f_sp,
                           gm_ext=m_ext * GM_SUN_AU3_PER_YR2, b_ext=b_ext,
                           light_time=light_time, steps_per_orbit=steps_per_orbit)
     out = shape + t.shape[-1:]
+    if scalar_t:
+        out = shape
     p, v = st.position, st.velocity * KMS_PER_AU_PER_YR
-    return PhysicalTrack(p[..., 0].reshape(out), p[..., 1].reshape(out), p[..., 2].reshape(out),
-                         v[..., 0].reshape(out), v[..., 1].reshape(out), v[..., 2].reshape(out),
-                         st.t_emit.reshape(out))
+    return PhysicalTrack(*(x.reshape(out) for x in (p[..., 0], p[..., 1], p[..., 2], v[..., 0],
+                                                    v[..., 1], v[..., 2], st.t_emit)))

@@ -18,8 +18,14 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .constants import C_AU_PER_YR, C_KMS, GRAV_RADIUS_AU_PER_MSUN, KEPLER_K, KMS_PER_AU_PER_YR
-from .constants import MAS_PER_RAD
+from .constants import (
+    C_AU_PER_YR,
+    C_KMS,
+    GRAV_RADIUS_AU_PER_MSUN,
+    KEPLER_K,
+    KMS_PER_AU_PER_YR,
+    MAS_PER_RAD,
+)
 from .pn import IntegratedStates, PhysicalTrack, integrate_orbits, osculating_state, pn_track
 
 __all__ = [

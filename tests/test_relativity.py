@@ -315,3 +315,22 @@ def test_extended_mass_precession_first_order_vs_integration():
     first = plummer_precession_per_orbit_rad(m_ext, b, A_TIGHT, E_TIGHT, MASS)
     assert first < 0.0
     assert advance == pytest.approx(first, rel=0.01)
+
+
+def test_bad_state_returns_nan_instead_of_hanging():
+    # Behaviour contract: a non-finite initial state (e.g. a walker outside the prior)
+    # yields NaN at every requested epoch, before and after t0.
+    st = integrate_orbits([-1.0, 0.5, 2.0], [np.nan, 1.0, 0.0], [0.0, 6.0, 0.0], 0.0,
+                          GM_SUN_AU3_PER_YR2)
+    assert np.isnan(st.position).all() and np.isnan(st.t_emit).all()
+
+
+def test_element_grid_broadcasts_like_single_calls():
+    # Two stars x three walkers in one call equal the six separate calls (common practice).
+    e = np.array([[0.5, 0.88, 0.95], [0.3, 0.7, 0.9]])
+    t = np.linspace(2001.0, 2030.0, 7)
+    grid = pn_track(t, A_TIGHT, e, 1.0, 0.2, 0.3, 2010.0, MASS, 2005.0)
+    one = pn_track(t, A_TIGHT, e[1, 2], 1.0, 0.2, 0.3, 2010.0, MASS, 2005.0)
+    assert grid.north.shape == (2, 3, 7)
+    assert np.max(np.abs(grid.north[1, 2] - one.north)) < 1e-12 * A_TIGHT
+    assert pn_track(2012.0, A_TIGHT, 0.5, 1.0, 0.2, 0.3, 2010.0, MASS, 2005.0).z.shape == ()
