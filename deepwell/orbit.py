@@ -26,6 +26,8 @@ __all__ = [
     "kepler_xy",
     "OrbitTrack",
     "keplerian_track",
+    "elements_from_thiele_innes",
+    "position_angle_separation",
 ]
 
 
@@ -176,3 +178,92 @@ def keplerian_track(t, a, ecc, inc, node, peri_arg, t_peri, period, distance):
         v_north=A * dX + F * dY,
         v_z=(C * dX + H * dY) * mas_per_yr_to_kms,
     )
+
+
+def elements_from_thiele_innes(A, B, F, G, C=None, H=None):
+    """Geometric elements from the Thiele-Innes constants.
+
+    Parameters
+    ----------
+    A, B, F, G : array_like
+        Thiele-Innes constants (any length or angle unit, e.g. mas), as
+        returned by :func:`thiele_innes`.
+    C, H : array_like, optional
+        The line-of-sight constants C = a sin(omega) sin(i) and
+        H = a cos(omega) sin(i).  Either one, or both, resolves the
+        180-degree ambiguity of the node.
+
+    Returns
+    -------
+    a : ndarray
+        Semi-major axis, in the unit of the constants.
+    inc : ndarray
+        Inclination in radians, in [0, pi].
+    node : ndarray
+        Position angle of the ascending node in radians: in [0, pi) without
+        ``C`` and ``H``, in [0, 2 pi) with them.
+    peri_arg : ndarray
+        Argument of pericentre in radians, in [0, 2 pi), matching ``node``.
+
+    Notes
+    -----
+    With the conventions of :func:`thiele_innes`,
+
+        A + G = a (1 + cos i) cos(omega + node),  B - F = a (1 + cos i) sin(omega + node),
+        A - G = a (1 - cos i) cos(omega - node),  -B - F = a (1 - cos i) sin(omega - node),
+
+    so with R+ = hypot(A + G, B - F) and R- = hypot(A - G, B + F):
+    a = (R+ + R-)/2, tan^2(i/2) = R-/R+, and omega +/- node follow from
+    two arc tangents.  Astrometry alone fixes (node, omega) only up to a
+    common shift by pi; since sin i >= 0, the signs of C and H give those
+    of sin(omega) and cos(omega) and pick the branch.  For i = 0 or pi only
+    omega + node (or omega - node) is defined; half of it is returned for
+    each.
+    """
+    A, B, F, G = (np.asarray(v, dtype=float) for v in (A, B, F, G))
+    r_plus = np.hypot(A + G, B - F)
+    r_minus = np.hypot(A - G, B + F)
+    a = 0.5 * (r_plus + r_minus)
+    inc = 2.0 * np.arctan2(np.sqrt(r_minus), np.sqrt(r_plus))
+    w_plus_n = np.arctan2(B - F, A + G)
+    w_minus_n = np.arctan2(-B - F, A - G)
+    peri_arg = 0.5 * (w_plus_n + w_minus_n)
+    node = 0.5 * (w_plus_n - w_minus_n)
+    # Put the node in [0, pi), moving omega with it.
+    wrapped = _wrap(node, np.pi)
+    peri_arg = peri_arg + (wrapped - node)
+    node = wrapped
+    if C is not None or H is not None:
+        c_val = 0.0 if C is None else np.asarray(C, dtype=float)
+        h_val = 0.0 if H is None else np.asarray(H, dtype=float)
+        flip = np.sin(peri_arg) * c_val + np.cos(peri_arg) * h_val < 0.0
+        node = np.where(flip, node + np.pi, node)
+        peri_arg = np.where(flip, peri_arg + np.pi, peri_arg)
+    return a, inc, node, _wrap(peri_arg, 2.0 * np.pi)
+
+
+def position_angle_separation(east, north):
+    """Separation and position angle of a sky offset.
+
+    Parameters
+    ----------
+    east, north : array_like
+        Offsets toward east (Delta RA cos dec) and north, in one unit.
+
+    Returns
+    -------
+    separation : ndarray
+        sqrt(east^2 + north^2), in the unit of the offsets.
+    position_angle : ndarray
+        Radians in [0, 2 pi), measured from north through east:
+        atan2(east, north).
+    """
+    east = np.asarray(east, dtype=float)
+    north = np.asarray(north, dtype=float)
+    return np.hypot(east, north), _wrap(np.arctan2(east, north), 2.0 * np.pi)
+
+
+def _wrap(angle, period):
+    """Angle reduced to [0, period) (np.mod alone can round up to period)."""
+    reduced = np.mod(angle, period)
+    return np.where(reduced >= period, reduced - period, reduced)
