@@ -1,0 +1,192 @@
+"""The joint least-squares fit and its uncertainties.
+
+``fit_joint`` sets bounds and fixed entries of the internal vector, finds starting
+orbits automatically (:mod:`deepwell.start`), minimises the whitened residuals
+with bounds, fixed parameters and Gaussian priors, and returns a
+:class:`~deepwell.results.FitResult` with the covariance of the reported
+(physical) quantities from the Jacobian at the solution.  The stated errors
+are used as given: the covariance is *not* rescaled by the reduced chi-square.
+"""
+
+import warnings
+
+import numpy as np
+from scipy.optimize import least_squares
+
+from .model import JointModel, Prior
+from .parameters import SHARED, STAR_INTERNAL
+from .results import FitResult, physical_labels, physical_vector
+from .start import find_start
+
+__all__ = ["build_model", "fit_joint", "numerical_jacobian", "FitWarning"]
+
+
+class FitWarning(UserWarning):
+    """A fit that finished but whose result needs care."""
+
+
+def build_model(observations, settings):
+    """The joint model with the priors of the settings file."""
+    priors = []
+    for name in SHARED:
+        s = settings.shared_setting(name)
+        if s.prior_mean is not None:
+            priors.append(Prior(name, s.prior_mean, s.prior_sigma))
+    stars = list(dict.fromkeys(observations.positions["star"]))
+    for star, st in settings.stars.items():
+        if star in stars:
+            for el, (mean, sigma) in st.priors.items():
+                priors.append(Prior(el, mean, sigma, star=star))
+    return JointModel(observations, reference_epoch=settings.reference_epoch, priors=priors)
+
+
+def _bounds(model, settings):
+    """Lower and upper bounds and the fitted mask of the internal vector."""
+    names = model.layout.names()
+    lo = np.full(len(names), -np.inf)
+    hi = np.full(len(names), np.inf)
+    free = np.ones(len(names), bool)
+    for i, name in enumerate(names):
+        if name in SHARED:
+            s = settings.shared_setting(name)
+            lo[i] = SHARED[name].lower if s.min is None else s.min
+            hi[i] = SHARED[name].upper if s.max is None else s.max
+            free[i] = not s.fixed
+        else:
+            k, el = name[1:].split("_", 1)
+            st = settings.stars.get(model.stars[int(k)])
+            free[i] = not (st is not None and st.fixed)
+            lo[i], hi[i] = {"period": (1e-3, np.inf), "sqe_cos": (-1.0, 1.0),
+                            "sqe_sin": (-1.0, 1.0), "cos_inc": (-1.0, 1.0)}.get(el, (-np.inf, np.inf))
+    return lo, hi, free
+
+
+def _default_steps(model, vec):
+    """Finite-difference steps in the internal parameters."""
+    lay = model.layout
+    h = np.empty(lay.size)
+    base = {"mass": 1e-7 * abs(vec[0]), "distance": 1e-7 * abs(vec[1]), "x0": 1e-4, "y0": 1e-4,
+            "vx0": 1e-5, "vy0": 1e-5, "vz0": 1e-3}
+    for i, n in enumerate(lay.shared_names):
+        h[i] = base.get(n, 1e-5)
+    blk = lay.star_block(vec)
+    for k in range(len(lay.stars)):
+        per = abs(blk[k, 0])
+        i0 = lay.n_shared + k * len(STAR_INTERNAL)
+        h[i0:i0 + 6] = [1e-7 * per, 1e-6, 1e-6, 1e-6, 1e-6, 1e-7 * per]
+    return h
+
+
+def numerical_jacobian(func, vec, free, steps):
+    """Central-difference Jacobian of ``func`` over the ``free`` entries of ``vec``.
+
+    All 2 n trial vectors are evaluated in one vectorised call.
+    """
+    idx = np.flatnonzero(free)
+    trial = np.repeat(vec[None, :], 2 * len(idx), axis=0)
+    for j, i in enumerate(idx):
+        trial[2 * j, i] += steps[i]
+        trial[2 * j + 1, i] -= steps[i]
+    out = func(trial)
+    return ((out[0::2] - out[1::2]) / (2.0 * steps[idx])[:, None]).T
+
+
+def covariance(model, vec, free):
+    """Covariance of the free internal parameters from J^T J (errors as given)."""
+    steps = _default_steps(model, vec)
+    for _ in range(2):
+        jac = numerical_jacobian(model.residuals, vec, free, steps)
+        u, s, vt = np.linalg.svd(jac, full_matrices=False)
+        keep = s > s[0] * 1e-12
+        cov = (vt[keep].T / s[keep] ** 2) @ vt[keep]
+        sig = np.sqrt(np.clip(np.diag(cov), 0, None))
+        steps[free] = np.where(sig > 0, 1e-3 * sig, steps[free])
+    rank_deficient = int(np.sum(~keep))
+    return cov, rank_deficient
+
+
+def minimise(model, vec0, free, lo, hi, max_nfev=None):
+    """Least-squares minimum of the model residuals over the ``free`` entries.
+
+    Uses scipy's trust-region reflective method with the bounds and a
+    vectorised central-difference Jacobian (all trial vectors in one model call).
+    """
+    vec0 = np.asarray(vec0, float)
+    idx = np.flatnonzero(free)
+
+    def full(x):
+        v = np.broadcast_to(vec0, x.shape[:-1] + vec0.shape).copy()
+        v[..., idx] = x
+        return v
+
+    steps = _default_steps(model, vec0)
+
+    def fun(x):
+        return model.residuals(full(x))
+
+    def jac(x):
+        return numerical_jacobian(model.residuals, full(x), free, steps)
+
+    sol = least_squares(fun, vec0[idx], jac=jac, bounds=(lo[idx], hi[idx]), x_scale="jac",
+                        method="trf", ftol=1e-10, xtol=1e-10, gtol=1e-10,
+                        max_nfev=max_nfev or 100 + 20 * len(idx))
+    return full(sol.x), sol
+
+
+def fit_joint(observations, settings, progress=None):
+    """Fit all stars jointly around one mass.
+
+    Parameters
+    ----------
+    observations : deepwell.tables.Observations
+    settings : deepwell.settings.Settings
+    progress : callable, optional
+        Called with a short text at each phase (for the command line).
+
+    Returns
+    -------
+    FitResult
+    """
+    say = progress or (lambda text: None)
+    model = build_model(observations, settings)
+    say(f"searching starting orbits for {len(model.stars)} stars")
+    start = find_start(model, settings)
+    lo, hi, free = _bounds(model, settings)
+    vec0 = np.clip(start.vec, lo, hi)
+    say(f"joint fit of {int(free.sum())} parameters to {model.n_data} data")
+    vec, sol = minimise(model, vec0, free, lo, hi)
+    say("uncertainties from the Jacobian at the solution")
+    cov_int, rank_def = covariance(model, vec, free)
+    full_cov = np.zeros((model.layout.size, model.layout.size))
+    full_cov[np.ix_(free, free)] = cov_int
+    steps = _default_steps(model, vec)
+    steps[free] = np.where(np.diag(cov_int) > 0, 1e-3 * np.sqrt(np.diag(cov_int)), steps[free])
+    G = numerical_jacobian(lambda v: physical_vector(model.layout, v), vec, free, steps)
+    cov_phys = G @ cov_int @ G.T
+    chi_s, n_s = model.star_chi2(vec)
+    notes = list(start.notes)
+    if rank_def:
+        notes.append(f"{rank_def} parameter combination(s) are not constrained by the data "
+                     "(singular covariance); their errors are not meaningful")
+        warnings.warn(FitWarning(notes[-1]), stacklevel=2)
+    if not sol.success:
+        notes.append(f"the optimiser stopped without convergence: {sol.message}")
+    return FitResult(
+        model=model,
+        internal=vec,
+        internal_cov=full_cov,
+        free=free,
+        values=physical_vector(model.layout, vec),
+        cov=cov_phys,
+        labels=physical_labels(model.layout),
+        chi2=float(model.chi2(vec)),
+        n_data=model.n_data,
+        n_free=int(free.sum()),
+        star_chi2=chi_s,
+        star_ndata=n_s,
+        converged=bool(sol.success),
+        nfev=int(sol.nfev),
+        notes=tuple(notes),
+        settings=settings,
+        observations=observations,
+    )

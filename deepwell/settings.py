@@ -1,0 +1,185 @@
+"""The optional TOML settings file: fixed parameters, starts, bounds, priors.
+
+Example::
+
+    reference_epoch = 2000.0      # Julian year (TT) of x0, y0 and the drift
+    min_epochs = 3                # stars with fewer position epochs are set aside
+
+    [shared.distance]             # any of mass, distance, x0, y0, vx0, vy0, vz0
+    value = 7100.0                # starting value (pc)
+    fixed = false
+    min = 5000.0                  # hard bounds (a uniform prior)
+    max = 9000.0
+    prior = { mean = 7100.0, sigma = 150.0 }   # Gaussian prior
+
+    [stars.cv-03]                 # starting elements for one star
+    a = 210.0                     # mas
+    e = 0.62
+    inc = 120.0                   # deg
+    node = 40.0
+    peri_arg = 300.0
+    t_peri = 2011.4               # Julian year
+    fixed = false                 # true holds the whole orbit fixed (needs all six)
+    prior = { e = { mean = 0.6, sigma = 0.05 } }
+"""
+
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .errors import SettingsError
+from .parameters import SHARED, STAR_ELEMENTS
+
+__all__ = ["SharedSetting", "StarSetting", "Settings", "load_settings"]
+
+_TOP_KEYS = {"reference_epoch", "min_epochs", "shared", "stars", "effects"}
+_SHARED_KEYS = {"value", "fixed", "min", "max", "prior"}
+
+
+@dataclass(frozen=True)
+class SharedSetting:
+    """User settings for one shared parameter (units as in parameters.SHARED)."""
+
+    value: float | None = None
+    fixed: bool = False
+    min: float | None = None
+    max: float | None = None
+    prior_mean: float | None = None
+    prior_sigma: float | None = None
+
+
+@dataclass(frozen=True)
+class StarSetting:
+    """User settings for one star: starting elements, a fixed flag, priors."""
+
+    start: dict = field(default_factory=dict)  # element -> value (mas, deg, yr)
+    fixed: bool = False
+    priors: dict = field(default_factory=dict)  # element -> (mean, sigma)
+
+
+@dataclass(frozen=True)
+class Settings:
+    """All settings of one fit; defaults apply when no file is given."""
+
+    reference_epoch: float = 2000.0
+    min_epochs: int = 3
+    shared: dict = field(default_factory=dict)
+    stars: dict = field(default_factory=dict)
+    effects: dict = field(default_factory=dict)
+    source: str | None = None
+    raw: dict = field(default_factory=dict)
+
+    def shared_setting(self, name):
+        return self.shared.get(name, SharedSetting())
+
+
+def _number(value, file, key):
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise SettingsError(f"expected a number, got {value!r}", file=file, column=key)
+    return float(value)
+
+
+def _prior(spec, file, key):
+    if not isinstance(spec, dict) or set(spec) != {"mean", "sigma"}:
+        raise SettingsError("a prior is { mean = ..., sigma = ... }", file=file, column=key)
+    mean = _number(spec["mean"], file, key + ".mean")
+    sigma = _number(spec["sigma"], file, key + ".sigma")
+    if not sigma > 0:
+        raise SettingsError("prior sigma must be positive", file=file, column=key + ".sigma")
+    return mean, sigma
+
+
+def _shared(name, spec, file):
+    key = f"shared.{name}"
+    if name not in SHARED:
+        raise SettingsError(f"unknown shared parameter (known: {', '.join(SHARED)})",
+                            file=file, column=key)
+    if not isinstance(spec, dict):
+        raise SettingsError("expected a table", file=file, column=key)
+    unknown = set(spec) - _SHARED_KEYS
+    if unknown:
+        raise SettingsError(f"unknown key '{sorted(unknown)[0]}'", file=file, column=key)
+    kw = {}
+    for k in ("value", "min", "max"):
+        if k in spec:
+            kw[k] = _number(spec[k], file, f"{key}.{k}")
+    if "fixed" in spec:
+        if not isinstance(spec["fixed"], bool):
+            raise SettingsError("fixed must be true or false", file=file, column=key + ".fixed")
+        kw["fixed"] = spec["fixed"]
+        if spec["fixed"] and "value" not in spec:
+            raise SettingsError("a fixed parameter needs a value", file=file, column=key)
+    if "prior" in spec:
+        kw["prior_mean"], kw["prior_sigma"] = _prior(spec["prior"], file, key + ".prior")
+    lo, hi = kw.get("min"), kw.get("max")
+    if lo is not None and hi is not None and not lo < hi:
+        raise SettingsError("min must be below max", file=file, column=key)
+    return SharedSetting(**kw)
+
+
+def _star(name, spec, file):
+    key = f"stars.{name}"
+    if not isinstance(spec, dict):
+        raise SettingsError("expected a table", file=file, column=key)
+    start, priors, fixed = {}, {}, False
+    for k, v in spec.items():
+        if k in STAR_ELEMENTS:
+            start[k] = _number(v, file, f"{key}.{k}")
+        elif k == "fixed":
+            if not isinstance(v, bool):
+                raise SettingsError("fixed must be true or false", file=file, column=f"{key}.fixed")
+            fixed = v
+        elif k == "prior":
+            if not isinstance(v, dict):
+                raise SettingsError("expected a table of priors", file=file, column=f"{key}.prior")
+            for el, p in v.items():
+                if el not in STAR_ELEMENTS:
+                    raise SettingsError(f"unknown element '{el}'", file=file, column=f"{key}.prior")
+                priors[el] = _prior(p, file, f"{key}.prior.{el}")
+        else:
+            raise SettingsError(f"unknown key '{k}' (elements: {', '.join(STAR_ELEMENTS)})",
+                                file=file, column=key)
+    if fixed and set(start) != set(STAR_ELEMENTS):
+        raise SettingsError("a fixed star needs all six elements", file=file, column=key)
+    if "e" in start and not 0.0 <= start["e"] < 1.0:
+        raise SettingsError("e must be in [0, 1)", file=file, column=f"{key}.e")
+    return StarSetting(start=start, fixed=fixed, priors=priors)
+
+
+def parse_settings(data, file=None):
+    """Validate a settings mapping (as read from TOML) into :class:`Settings`."""
+    unknown = set(data) - _TOP_KEYS
+    if unknown:
+        raise SettingsError(f"unknown key '{sorted(unknown)[0]}'", file=file)
+    ref = _number(data.get("reference_epoch", 2000.0), file, "reference_epoch")
+    min_epochs = data.get("min_epochs", 3)
+    if isinstance(min_epochs, bool) or not isinstance(min_epochs, int) or min_epochs < 3:
+        raise SettingsError("min_epochs must be an integer >= 3", file=file, column="min_epochs")
+    shared = {n: _shared(n, s, file) for n, s in data.get("shared", {}).items()}
+    stars = {n: _star(n, s, file) for n, s in data.get("stars", {}).items()}
+    effects = data.get("effects", {})
+    if not isinstance(effects, dict):
+        raise SettingsError("expected a table", file=file, column="effects")
+    return Settings(reference_epoch=ref, min_epochs=min_epochs, shared=shared, stars=stars,
+                    effects=dict(effects), source=file, raw=data)
+
+
+def load_settings(path):
+    """Read and validate a TOML settings file.
+
+    Raises
+    ------
+    SettingsError
+        For a file that is not valid TOML (with its line) or holds unknown keys,
+        wrong types or inconsistent values.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise SettingsError(f"cannot read settings file: {exc}", file=str(path)) from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SettingsError(f"not valid TOML: {exc}", file=str(path)) from None
+    return parse_settings(data, file=str(path))
