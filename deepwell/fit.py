@@ -14,7 +14,7 @@ import numpy as np
 from scipy.optimize import least_squares
 
 from .model import JointModel, Prior
-from .parameters import SHARED, STAR_INTERNAL
+from .parameters import EXTRA, SHARED, STAR_INTERNAL
 from .results import FitResult, physical_labels, physical_vector
 from .start import find_start
 
@@ -47,10 +47,11 @@ def _bounds(model, settings):
     hi = np.full(len(names), np.inf)
     free = np.ones(len(names), bool)
     for i, name in enumerate(names):
-        if name in SHARED:
+        if name in SHARED or name in EXTRA:
+            spec = SHARED.get(name) or EXTRA[name]
             s = settings.shared_setting(name)
-            lo[i] = SHARED[name].lower if s.min is None else s.min
-            hi[i] = SHARED[name].upper if s.max is None else s.max
+            lo[i] = spec.lower if s.min is None else s.min
+            hi[i] = spec.upper if s.max is None else s.max
             free[i] = not s.fixed
         else:
             k, el = name[1:].split("_", 1)

@@ -51,6 +51,11 @@ SHARED = {
     )
 }
 
+#: Optional shared parameters that switchable model pieces add (effect strengths,
+#: data-set terms).  A piece registers its ParameterSpec here; the fitter takes
+#: bounds from it and the settings file may fix or bound it like a shared one.
+EXTRA = {}
+
 STAR_ELEMENTS = {
     p.name: p
     for p in (
