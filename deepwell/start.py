@@ -370,16 +370,30 @@ def _refine_star(sub, soft, vec, layout, cands, settings):
     base = vec[:n_sh].copy()
 
     def resid(x, mod, mass_free):
-        v = np.concatenate([base, x[1:]]) if mass_free else np.concatenate([base, x])
+        x = np.asarray(x)
+        b = np.broadcast_to(base, x.shape[:-1] + base.shape)
         if mass_free:
-            v[0] = x[0] * mass
+            v = np.concatenate([b, x[..., 1:]], axis=-1)
+            v[..., 0] = x[..., 0] * mass
+        else:
+            v = np.concatenate([b, x], axis=-1)
         return mod.residuals(v)
+
+    def jac(x, mod, mass_free):
+        # all central differences in one vectorised model call
+        h = 1e-6 * np.maximum(np.abs(x), 1e-2)
+        h[-1] = h[0 if not mass_free else 1] * 0.1 if x.size > 1 else h[-1]
+        trial = np.repeat(x[None, :], 2 * x.size, axis=0)
+        trial[0::2][np.diag_indices(x.size)] += h
+        trial[1::2][np.diag_indices(x.size)] -= h
+        out = resid(trial, mod, mass_free)
+        return ((out[0::2] - out[1::2]) / (2.0 * h)[:, None]).T
 
     def run(mod, x0, mass_free):
         scale = _star_scale(x0[1:] if mass_free else x0)
         if mass_free:
             scale = np.concatenate([[0.01], scale])
-        return least_squares(resid, x0, x_scale=scale, max_nfev=300, method="lm",
+        return least_squares(resid, x0, jac=jac, x_scale=scale, max_nfev=300, method="lm",
                              args=(mod, mass_free))
 
     best = None
