@@ -1,0 +1,113 @@
+"""Injection-recovery tests of the joint fit (invented data only)."""
+
+import json
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from deepwell.fit import build_model, covariance, fit_joint, minimise, _bounds
+from deepwell.parameters import SHARED, internal_star_values
+from deepwell.settings import Settings, parse_settings
+from deepwell.tables import read_observations
+
+
+def truth_vector(model, folder):
+    """Internal vector of the simulated truth (the independent reference)."""
+    truth = json.loads((folder / "truth.json").read_text())
+    vec = np.zeros(model.layout.size)
+    for i, name in enumerate(SHARED):
+        vec[i] = truth["shared"][name]
+    for k, star in enumerate(model.stars):
+        el = truth["stars"][star]
+        i0 = model.layout.n_shared + 6 * k
+        vec[i0:i0 + 6] = internal_star_values(
+            el["period"], el["e"], np.radians(el["inc"]), np.radians(el["node"]),
+            np.radians(el["peri_arg"]), el["t_peri"])
+    return vec
+
+
+@pytest.fixture(scope="module")
+def small_fit(small_scenario):
+    obs = read_observations(small_scenario)
+    return fit_joint(obs, Settings())
+
+
+def test_automatic_start_reaches_the_chi2_of_a_fit_started_at_the_truth(small_fit,
+                                                                         small_scenario):
+    model = small_fit.model
+    lo, hi, free = _bounds(model, Settings())
+    vec, _ = minimise(model, truth_vector(model, small_scenario), free, lo, hi)
+    # same minimum within 0.05 in chi-square (a fraction of the 1-sigma change of 1)
+    assert small_fit.chi2 <= model.chi2(vec) + 0.05
+
+
+def test_shared_parameters_recovered_within_joint_997_region(small_fit, small_scenario):
+    truth = truth_vector(small_fit.model, small_scenario)
+    n = len(SHARED)
+    diff = small_fit.values[:n] - truth[:n]
+    maha = diff @ np.linalg.solve(small_fit.cov[:n, :n], diff)
+    # one joint test: Mahalanobis distance against the chi-square 99.7% quantile, 7 dof
+    assert maha < stats.chi2.ppf(0.997, n)
+
+
+def test_reduced_chi2_of_a_correct_model_is_near_one(small_fit):
+    # chi-square of a correct model: mean dof, sd sqrt(2 dof); 4 sd band (common practice)
+    dof = small_fit.dof
+    assert abs(small_fit.chi2 - dof) < 4 * np.sqrt(2 * dof)
+
+
+def test_mass_distance_degeneracy_exponent(small_fit):
+    # For astrometry plus velocities the mass scales roughly as distance**alpha with
+    # alpha between 2 and 3 (a**3/P**2 with a ~ distance: alpha = 3 for pure astrometry,
+    # lower when velocities pin the distance) -- common practice.
+    assert 1.0 < small_fit.mass_distance_exponent < 3.2
+    assert small_fit.mass_distance_correlation > 0.5
+
+
+def test_fixed_distance_is_held_and_shrinks_the_mass_error(small_scenario, small_fit):
+    obs = read_observations(small_scenario)
+    settings = parse_settings({"shared": {"distance": {"value": 5200.0, "fixed": True}}})
+    res = fit_joint(obs, settings)
+    assert res.value("distance") == 5200.0
+    assert res.sigma("distance") == 0.0
+    assert res.sigma("mass") < small_fit.sigma("mass")
+
+
+def test_gaussian_prior_pulls_toward_its_mean(small_scenario, small_fit):
+    # A prior with sigma much smaller than the data error dominates: the posterior
+    # mean of a linear-Gaussian problem is the precision-weighted mean (common practice).
+    obs = read_observations(small_scenario)
+    d0, s0 = small_fit.value("distance"), small_fit.sigma("distance")
+    prior_mean, prior_sigma = d0 + 3 * s0, s0 / 10
+    settings = parse_settings({"shared": {"distance": {
+        "prior": {"mean": prior_mean, "sigma": prior_sigma}}}})
+    res = fit_joint(obs, settings)
+    expected = (d0 / s0**2 + prior_mean / prior_sigma**2) / (1 / s0**2 + 1 / prior_sigma**2)
+    assert res.value("distance") == pytest.approx(expected, abs=0.3 * prior_sigma)
+
+
+def test_covariance_matches_inverse_hessian_of_chi2(small_fit):
+    # Independent route: finite-difference Hessian of chi2/2 in two parameters
+    model, vec, free = small_fit.model, small_fit.internal, small_fit.free
+    cov, _ = covariance(model, vec, free)
+    i = 0  # mass
+    h = 1e-3 * np.sqrt(cov[i, i])
+
+    def half_chi2(v):
+        r = model.residuals(v)
+        return 0.5 * np.sum(r * r)
+
+    # curvature along the mass axis with the other parameters re-minimised equals
+    # 1 / var(mass) (profile likelihood, common practice)
+    lo, hi, fr = _bounds(model, Settings())
+    fr = fr.copy()
+    fr[i] = False
+    prof = []
+    for step in (-1, 0, 1):
+        v0 = vec.copy()
+        v0[i] += step * 30 * h
+        v, _ = minimise(model, v0, fr, lo, hi)
+        prof.append(half_chi2(v))
+    curv = (prof[0] - 2 * prof[1] + prof[2]) / (30 * h) ** 2
+    assert 1.0 / curv == pytest.approx(cov[i, i], rel=0.05)
