@@ -19,8 +19,15 @@ __all__ = ["main"]
 log = logging.getLogger("deepwell")
 
 
+def _common():
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("-q", "--quiet", action="store_true", help="print only warnings")
+    return common
+
+
 def _add_fit(sub):
-    p = sub.add_parser("fit", help="fit all stars around one central mass and write a report")
+    p = sub.add_parser("fit", parents=[_common()],
+                       help="fit all stars around one central mass and write a report")
     p.add_argument("scenario", help="folder with positions.csv (and velocities.csv)")
     io = p.add_argument_group("output")
     io.add_argument("--out", required=True, help="report folder to create")
@@ -35,7 +42,8 @@ def _add_fit(sub):
 
 
 def _add_simulate(sub):
-    p = sub.add_parser("simulate", help="make invented data from a scenario description")
+    p = sub.add_parser("simulate", parents=[_common()],
+                       help="make invented data from a scenario description")
     p.add_argument("description", help="scenario description (TOML)")
     p.add_argument("--out", required=True, help="scenario folder to create")
     p.add_argument("--replace", action="store_true", help="replace an earlier simulation")
@@ -48,7 +56,6 @@ def _parser():
         description="Weigh the dark mass at a galaxy's centre from the orbits of its stars.",
     )
     parser.add_argument("--version", action="version", version=f"deepwell {__version__}")
-    parser.add_argument("-q", "--quiet", action="store_true", help="print only warnings")
     sub = parser.add_subparsers(dest="command", required=True)
     _add_fit(sub)
     _add_simulate(sub)

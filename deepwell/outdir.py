@@ -116,6 +116,10 @@ def prepare_output(final_dir, replace=False):
     try:
         parent.mkdir(parents=True, exist_ok=True)
         tmp = tempfile.mkdtemp(prefix=f".{final.name}.deepwell-tmp-", dir=parent)
+        # mkdtemp makes the folder private (0700); give it the usual permissions
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o777 & ~umask)
     except OSError as exc:
         raise OutputError(f"{final}: cannot create a folder beside it: {exc.strerror}") from None
     return Path(tmp)
