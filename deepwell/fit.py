@@ -28,7 +28,8 @@ class FitWarning(UserWarning):
 def build_model(observations, settings):
     """The joint model with the priors of the settings file."""
     priors = []
-    for name in SHARED:
+    effects = settings.effect_switches()
+    for name in tuple(SHARED) + effects.extra_names:
         s = settings.shared_setting(name)
         if s.prior_mean is not None:
             priors.append(Prior(name, s.prior_mean, s.prior_sigma))
@@ -37,7 +38,8 @@ def build_model(observations, settings):
         if star in stars:
             for el, (mean, sigma) in st.priors.items():
                 priors.append(Prior(el, mean, sigma, star=star))
-    return JointModel(observations, reference_epoch=settings.reference_epoch, priors=priors)
+    return JointModel(observations, reference_epoch=settings.reference_epoch, priors=priors,
+                      effects=effects)
 
 
 def _bounds(model, settings):
@@ -151,9 +153,11 @@ def fit_joint(observations, settings, progress=None):
     say = progress or (lambda text: None)
     model = build_model(observations, settings)
     say(f"searching starting orbits for {len(model.stars)} stars")
-    start = find_start(model, settings)
+    start = find_start(model.keplerian(), settings)  # effects: see deepwell.effects
+    model, start_vec = model.start_from(start.vec, settings)
+    start.notes.extend(model.effect_notes())
     lo, hi, free = _bounds(model, settings)
-    vec0 = np.clip(start.vec, lo, hi)
+    vec0 = np.clip(start_vec, lo, hi)
     say(f"joint fit of {int(free.sum())} parameters to {model.n_data} data")
     vec, sol = minimise(model, vec0, free, lo, hi)
     say("uncertainties from the Jacobian at the solution")

@@ -13,14 +13,30 @@ Model (``shared/physics.md`` section 3)::
     ra  = [x0 + vx0 (t - t_ref)] + east(t)     (frame rows; mass rows omit [..])
     dec = [y0 + vy0 (t - t_ref)] + north(t)
     vr  = vz0 + v_z(t)
+
+Switchable relativistic pieces (:mod:`deepwell.effects`) change east, north
+and v_z: the orbit is taken at the emission epoch (Romer delay), stars whose
+precession matters are integrated at first post-Newtonian order (elements
+osculating at each star's apocentre epoch t_peri + P/2), and vr gains the
+relativistic redshift scaled by f.  Without effects the model is the plain
+Keplerian one above, at the same cost as before.
 """
 
 from dataclasses import dataclass
 
 import numpy as np
 
-from .orbit import keplerian_track
-from .parameters import SHARED, STAR_ELEMENTS, Layout
+from .constants import KMS_PER_AU_PER_YR
+from .effects import (
+    Effects,
+    choose_integrated,
+    keplerian_emission_track,
+    reference_radius_from,
+)
+from .orbit import OrbitTrack, keplerian_track
+from .parameters import EXTRA, SHARED, STAR_ELEMENTS, Layout
+from .pn import pn_track
+from .relativity import plummer_enclosed_mass, redshift_velocity
 
 __all__ = ["JointModel", "Prediction", "Prior"]
 
@@ -68,9 +84,18 @@ class JointModel:
         Stars to model (default: every star with positions).
     priors : sequence of Prior, optional
         Gaussian priors, added as extra residual rows.
+    effects : deepwell.effects.Effects, optional
+        Relativistic pieces to include (default: none, the Keplerian model).
+    integrated : sequence of bool, optional
+        Per star: use the 1PN/Plummer orbit integrator (default: every star
+        when precession or an extended mass is on; see :meth:`start_from`).
+    reference_radius : float, optional
+        Radius (au) inside which ``ext_fraction`` is quoted (default: the
+        effects' value, else set by :meth:`start_from`).
     """
 
-    def __init__(self, observations, reference_epoch=2000.0, stars=None, priors=()):
+    def __init__(self, observations, reference_epoch=2000.0, stars=None, priors=(),
+                 effects=None, integrated=None, reference_radius=None):
         pos = observations.positions
         vel = observations.velocities
         pos = pos[~pos["exclude"].to_numpy(bool)]
@@ -81,7 +106,14 @@ class JointModel:
         pos = pos[pos["star"].isin(stars)]
         vel = vel[vel["star"].isin(stars)] if len(vel) else vel
         self.stars = stars
-        self.layout = Layout(stars=stars)
+        self.effects = Effects.newtonian() if effects is None else effects
+        self.layout = Layout(stars=stars, extra=self.effects.extra_names)
+        if integrated is None:
+            integrated = np.full(len(stars), self.effects.integrates)
+        self.integrated = np.asarray(integrated, bool)
+        if reference_radius is None:
+            reference_radius = self.effects.reference_radius
+        self.reference_radius = reference_radius
         self.reference_epoch = float(reference_epoch)
         index = {s: k for k, s in enumerate(stars)}
         self.pos = _Rows(pos, index, ("ra", "dec", "ra_err", "dec_err", "corr"))
@@ -102,6 +134,7 @@ class JointModel:
         self._w_ra = 1.0 / self.pos.ra_err
         self._w_dec = 1.0 / (self.pos.dec_err * root)
         self._w_mix = -self.pos.corr / (self.pos.ra_err * root)
+        self._star_rows = [np.flatnonzero(self._star_all == k) for k in range(len(stars))]
         self.priors = tuple(priors)
         self._prior_index = [self._prior_slot(p) for p in self.priors]
         self.observations = observations
@@ -109,7 +142,78 @@ class JointModel:
     def for_stars(self, stars):
         """The same model restricted to some stars (priors on other stars dropped)."""
         keep = [p for p in self.priors if p.star is None or p.star in stars]
-        return JointModel(self.observations, self.reference_epoch, stars=stars, priors=keep)
+        integ = [self.integrated[self.stars.index(s)] for s in stars]
+        return JointModel(self.observations, self.reference_epoch, stars=stars, priors=keep,
+                          effects=self.effects, integrated=integ,
+                          reference_radius=self.reference_radius)
+
+    def keplerian(self):
+        """The same data and priors with every effect off (for the start search)."""
+        keep = [p for p in self.priors if p.star is not None or p.name in SHARED]
+        return JointModel(self.observations, self.reference_epoch, stars=self.stars, priors=keep)
+
+    def start_from(self, keplerian_vec, settings=None):
+        """Finish the effect set-up from a Keplerian starting vector.
+
+        Inserts the effect strengths at their starting values (settings value,
+        else the default of :data:`deepwell.parameters.EXTRA`), chooses which
+        stars are integrated (:func:`deepwell.effects.choose_integrated`) and
+        fixes the reference radius of the extended mass if none was given.
+
+        Returns
+        -------
+        model : JointModel
+            The finished model (a new object).
+        vec : ndarray
+            The starting vector in its layout.
+        """
+        kep = np.asarray(keplerian_vec, dtype=float)
+        n0 = len(SHARED)
+        extras = []
+        for name in self.layout.extra:
+            s = settings.shared_setting(name) if settings is not None else None
+            value = s.value if s is not None and s.value is not None else EXTRA[name].default
+            extras.append(value)
+        vec = np.concatenate([kep[..., :n0], extras, kep[..., n0:]])
+        el = self.layout.elements(vec)
+        mass = float(self.layout.shared(vec, "mass"))
+        dist = float(self.layout.shared(vec, "distance"))
+        err = np.minimum(self.pos.ra_err, self.pos.dec_err)
+        min_err = np.array([err[self.pos.star == k].min() if np.any(self.pos.star == k)
+                            else np.inf for k in range(len(self.stars))])
+        integ = choose_integrated(self.effects, el, mass, dist, min_err)
+        ref = self.reference_radius
+        if self.effects.extended_mass and ref is None:
+            ref = reference_radius_from(el, dist)
+        model = JointModel(self.observations, self.reference_epoch, stars=self.stars,
+                           priors=self.priors, effects=self.effects, integrated=integ,
+                           reference_radius=ref)
+        return model, vec
+
+    def effect_notes(self):
+        """Plain statements of the effect model, for the fit's notes."""
+        fx = self.effects
+        notes = [f"relativistic effects modelled: {fx.describe()}"]
+        if fx.integrates and self.integrated.any():
+            notes.append(
+                "integrated stars ("
+                + ", ".join(s for s, i in zip(self.stars, self.integrated) if i)
+                + "): their elements a, e, inc, node, peri_arg, t_peri and period are "
+                "OSCULATING Keplerian elements at each star's apocentre epoch t_peri + P/2; "
+                "the observed pericentre epoch and integrated period differ slightly "
+                "(see the effect summary)")
+        if fx.precession and not self.integrated.all():
+            notes.append(
+                "stars kept Keplerian because their precession per orbit is below a tenth of "
+                "their smallest position error: "
+                + ", ".join(s for s, i in zip(self.stars, self.integrated) if not i))
+        if fx.extended_mass:
+            notes.append(
+                f"extended mass: a Plummer sphere with FIXED scale radius b = "
+                f"{fx.extended_scale:g} au centred on the mass; ext_fraction is its mass "
+                f"inside r_ref = {self.reference_radius:g} au over the point mass; other "
+                "density profiles would give other limits")
+        return notes
 
     # ------------------------------------------------------------------ sizes
     @property
@@ -126,15 +230,67 @@ class JointModel:
 
     # ------------------------------------------------------------- evaluation
     def track(self, vec):
-        """Orbit of every row relative to the mass, for internal vector(s) ``vec``."""
+        """Orbit of every row relative to the mass, for internal vector(s) ``vec``.
+
+        Returns an OrbitTrack (mas, mas/yr, km/s) at the emission epochs when
+        the Romer delay is on, integrated for the integrated stars.
+        """
+        vec = np.asarray(vec, dtype=float)
         el = self.layout.elements(vec)
         dist = self.layout.shared(vec, "distance")[..., None]
         s = self._star_all
-        return keplerian_track(
-            self._t_all, el["a"][..., s], el["e"][..., s], el["inc"][..., s],
-            el["node"][..., s], el["peri_arg"][..., s], el["t_peri"][..., s],
-            el["period"][..., s], dist,
-        )
+        fx = self.effects
+        if not fx.romer and not self.integrated.any():
+            return keplerian_track(
+                self._t_all, el["a"][..., s], el["e"][..., s], el["inc"][..., s],
+                el["node"][..., s], el["peri_arg"][..., s], el["t_peri"][..., s],
+                el["period"][..., s], dist,
+            )
+        shape = vec.shape[:-1] + (len(s),)
+        out = {k: np.empty(shape) for k in ("east", "north", "z", "v_east", "v_north", "v_z")}
+        kep = np.flatnonzero(~self.integrated[s])
+        if kep.size:
+            sk = s[kep]
+            tr, _ = keplerian_emission_track(
+                self._t_all[kep], el["a"][..., sk], el["e"][..., sk], el["inc"][..., sk],
+                el["node"][..., sk], el["peri_arg"][..., sk], el["t_peri"][..., sk],
+                el["period"][..., sk], dist, romer=fx.romer)
+            for k in out:
+                out[k][..., kep] = getattr(tr, k)
+        if self.integrated.any():
+            self._integrated_rows(vec, el, out)
+        return OrbitTrack(**out)
+
+    def _integrated_rows(self, vec, el, out):
+        """Fill ``out`` at the rows of integrated stars (1PN and/or Plummer)."""
+        fx = self.effects
+        mass = self.layout.shared(vec, "mass")
+        dist = self.layout.shared(vec, "distance")
+        f_sp = self.layout.shared(vec, "f_sp") if fx.precession else 0.0
+        m_ext, b_ext = 0.0, None
+        if fx.extended_mass:
+            if self.reference_radius is None:
+                raise ValueError("the extended mass needs a reference radius: set "
+                                 "[effects] reference_radius or call start_from()")
+            r_ref, b_ext = self.reference_radius, fx.extended_scale
+            total_per_inside = 1.0 / plummer_enclosed_mass(1.0, b_ext, r_ref)
+            m_ext = self.layout.shared(vec, "ext_fraction") * mass * total_per_inside
+        mas_per_au = 1e3 / dist[..., None]
+        mas_yr_per_kms = mas_per_au / KMS_PER_AU_PER_YR
+        for k in np.flatnonzero(self.integrated):
+            rows = self._star_rows[k]
+            a_au = el["a"][..., k] * 1e-3 * dist
+            tr = pn_track(self._t_all[rows], a_au, el["e"][..., k], el["inc"][..., k],
+                          el["node"][..., k], el["peri_arg"][..., k], el["t_peri"][..., k],
+                          mass, el["t_peri"][..., k] + 0.5 * el["period"][..., k], f_sp=f_sp,
+                          m_ext=m_ext, b_ext=b_ext, light_time=fx.romer,
+                          steps_per_orbit=fx.steps_per_orbit)
+            out["east"][..., rows] = tr.east * mas_per_au
+            out["north"][..., rows] = tr.north * mas_per_au
+            out["z"][..., rows] = tr.z * mas_per_au
+            out["v_east"][..., rows] = tr.v_east * mas_yr_per_kms
+            out["v_north"][..., rows] = tr.v_north * mas_yr_per_kms
+            out["v_z"][..., rows] = tr.v_z
 
     def predict(self, vec):
         """Predicted ra, dec (mas) and vr (km/s) at every observed row."""
@@ -147,7 +303,20 @@ class JointModel:
         fy = (sh(vec, "y0")[..., None] + sh(vec, "vy0")[..., None] * dt) * self.pos.frame
         ra = tr.east[..., :npos] + fx
         dec = tr.north[..., :npos] + fy
-        vr = tr.v_z[..., npos:] + sh(vec, "vz0")[..., None]
+        vz0 = sh(vec, "vz0")[..., None]
+        if self.effects.redshift == "off" or self.vel is None:
+            vr = tr.v_z[..., npos:] + vz0
+        else:
+            dist = sh(vec, "distance")[..., None]
+            mas_to_au = 1e-3 * dist
+            v_z = tr.v_z[..., npos:]
+            r_au = np.sqrt(tr.east[..., npos:] ** 2 + tr.north[..., npos:] ** 2
+                           + tr.z[..., npos:] ** 2) * mas_to_au
+            v_sky = (tr.v_east[..., npos:] ** 2 + tr.v_north[..., npos:] ** 2) \
+                * (mas_to_au * KMS_PER_AU_PER_YR) ** 2
+            vr = redshift_velocity(v_z, v_sky + v_z**2, r_au, sh(vec, "mass")[..., None],
+                                   f=sh(vec, "f")[..., None],
+                                   exact=self.effects.redshift == "exact", vz0=vz0)
         return Prediction(ra=ra, dec=dec, vr=vr)
 
     def data_residuals(self, vec):
@@ -204,7 +373,7 @@ class JointModel:
     # ---------------------------------------------------------------- helpers
     def _prior_slot(self, prior):
         if prior.star is None:
-            if prior.name not in SHARED:
+            if prior.name not in self.layout.shared_names:
                 raise ValueError(f"unknown shared parameter {prior.name!r}")
             return ("shared", None)
         if prior.name not in STAR_ELEMENTS:

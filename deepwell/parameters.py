@@ -16,6 +16,7 @@ from .orbit import a_from_period
 __all__ = [
     "ParameterSpec",
     "SHARED",
+    "EXTRA",
     "STAR_ELEMENTS",
     "STAR_INTERNAL",
     "Layout",
@@ -36,6 +37,8 @@ class ParameterSpec:
     lower: float = -np.inf
     upper: float = np.inf
     latex: str = ""
+    default: float | None = None  # value used when the settings give none (EXTRA only)
+    fixed_by_default: bool = False  # held at ``default`` unless the settings free it
 
 
 SHARED = {
@@ -54,7 +57,19 @@ SHARED = {
 #: Optional shared parameters that switchable model pieces add (effect strengths,
 #: data-set terms).  A piece registers its ParameterSpec here; the fitter takes
 #: bounds from it and the settings file may fix or bound it like a shared one.
-EXTRA = {}
+EXTRA = {
+    p.name: p
+    for p in (
+        ParameterSpec("f", "", "factor on the relativistic redshift (0 Newtonian, 1 general "
+                      "relativity)", -10.0, 10.0, "f", default=1.0, fixed_by_default=True),
+        ParameterSpec("f_sp", "", "factor on the 1PN (Schwarzschild) terms of the equation of "
+                      "motion (0 Newtonian, 1 general relativity)", -10.0, 10.0, r"f_\mathrm{SP}",
+                      default=1.0, fixed_by_default=True),
+        ParameterSpec("ext_fraction", "", "extended (Plummer) mass inside the reference radius, "
+                      "as a fraction of the central point mass", -1.0, 1.0,
+                      r"M_\mathrm{ext}(<r_\mathrm{ref})/M_\bullet", default=0.0),
+    )
+}
 
 STAR_ELEMENTS = {
     p.name: p

@@ -21,6 +21,26 @@ Example::
     t_peri = 2011.4               # Julian year
     fixed = false                 # true holds the whole orbit fixed (needs all six)
     prior = { e = { mean = 0.6, sigma = 0.05 } }
+
+    [effects]                     # relativistic pieces; these are the defaults
+    romer = true                  # light-travel (Romer) delay
+    redshift = "exact"            # "exact", "first-order" or "off"
+    precession = true             # 1PN orbits for stars where precession matters
+    precession_stars = "auto"     # or "all"
+    extended_mass = false         # Plummer sphere; needs extended_scale = b (au)
+    # extended_scale = 1000.0     # au
+    # reference_radius = 2000.0   # au (default: apocentre of the tightest star)
+
+    [shared.f]                    # effect strengths are shared parameters too:
+    fixed = false                 # f (redshift) and f_sp (precession) are held at
+                                  # 1 unless freed like this; ext_fraction (extended
+                                  # mass inside reference_radius / point mass) is
+                                  # fitted whenever the extended mass is on
+
+See :mod:`deepwell.effects` for the model behind each switch.  For the effect
+strengths (``f``, ``f_sp``, ``ext_fraction``) the keys of a ``[shared.NAME]``
+table that are left out keep the parameter's defaults (``f`` and ``f_sp``:
+value 1, fixed), so ``value = 0.9`` alone holds f at 0.9.
 """
 
 import tomllib
@@ -28,9 +48,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from .errors import SettingsError
-from .parameters import SHARED, STAR_ELEMENTS
+from .effects import Effects, parse_effects
+from .parameters import EXTRA, SHARED, STAR_ELEMENTS
 
-__all__ = ["SharedSetting", "StarSetting", "Settings", "load_settings"]
+__all__ = ["SharedSetting", "StarSetting", "Settings", "load_settings", "Effects"]
 
 _TOP_KEYS = {"reference_epoch", "min_epochs", "shared", "stars", "effects"}
 _SHARED_KEYS = {"value", "fixed", "min", "max", "prior"}
@@ -65,12 +86,21 @@ class Settings:
     min_epochs: int = 3
     shared: dict = field(default_factory=dict)
     stars: dict = field(default_factory=dict)
-    effects: dict = field(default_factory=dict)
+    effects: dict = field(default_factory=dict)  # [effects] as written, validated
     source: str | None = None
     raw: dict = field(default_factory=dict)
 
     def shared_setting(self, name):
-        return self.shared.get(name, SharedSetting())
+        if name in self.shared:
+            return self.shared[name]
+        spec = EXTRA.get(name)
+        if spec is not None:
+            return SharedSetting(value=spec.default, fixed=spec.fixed_by_default)
+        return SharedSetting()
+
+    def effect_switches(self):
+        """The validated :class:`deepwell.effects.Effects` (defaults fill the gaps)."""
+        return parse_effects(self.effects, file=self.source)
 
 
 def _number(value, file, key):
@@ -91,9 +121,9 @@ def _prior(spec, file, key):
 
 def _shared(name, spec, file):
     key = f"shared.{name}"
-    if name not in SHARED:
-        raise SettingsError(f"unknown shared parameter (known: {', '.join(SHARED)})",
-                            file=file, column=key)
+    if name not in SHARED and name not in EXTRA:
+        raise SettingsError(f"unknown shared parameter (known: {', '.join(SHARED)}, "
+                            f"{', '.join(EXTRA)})", file=file, column=key)
     if not isinstance(spec, dict):
         raise SettingsError("expected a table", file=file, column=key)
     unknown = set(spec) - _SHARED_KEYS
@@ -107,13 +137,17 @@ def _shared(name, spec, file):
         if not isinstance(spec["fixed"], bool):
             raise SettingsError("fixed must be true or false", file=file, column=key + ".fixed")
         kw["fixed"] = spec["fixed"]
-        if spec["fixed"] and "value" not in spec:
+        if spec["fixed"] and "value" not in spec and name not in EXTRA:
             raise SettingsError("a fixed parameter needs a value", file=file, column=key)
     if "prior" in spec:
         kw["prior_mean"], kw["prior_sigma"] = _prior(spec["prior"], file, key + ".prior")
     lo, hi = kw.get("min"), kw.get("max")
     if lo is not None and hi is not None and not lo < hi:
         raise SettingsError("min must be below max", file=file, column=key)
+    spec = EXTRA.get(name)
+    if spec is not None:  # effect strengths keep their defaults for keys left out
+        kw.setdefault("value", spec.default)
+        kw.setdefault("fixed", spec.fixed_by_default)
     return SharedSetting(**kw)
 
 
@@ -158,8 +192,7 @@ def parse_settings(data, file=None):
     shared = {n: _shared(n, s, file) for n, s in data.get("shared", {}).items()}
     stars = {n: _star(n, s, file) for n, s in data.get("stars", {}).items()}
     effects = data.get("effects", {})
-    if not isinstance(effects, dict):
-        raise SettingsError("expected a table", file=file, column="effects")
+    parse_effects(effects, file=file)  # validate; kept as written (see effect_switches)
     return Settings(reference_epoch=ref, min_epochs=min_epochs, shared=shared, stars=stars,
                     effects=dict(effects), source=file, raw=data)
 

@@ -11,8 +11,12 @@ units; keys marked ``opt`` may be left out, any key not listed is an error::
     [truth]     mass [Msun] > 0, distance [pc] > 0, and opt (default 0):
                 x0, y0 [mas] position of the mass at reference_epoch (east, north)
                 in the astrometric frame, vx0, vy0 [mas/yr] its drift, vz0 [km/s]
-    [effects]   opt: romer = false, redshift = 0.0, precession = 0.0 (placeholders:
-                any other value is refused, the simulator is Newtonian for now)
+    [effects]   opt, defaults are general relativity without an extended mass:
+                romer = true        light-travel (Romer) delay across the orbit
+                redshift = 1.0      f, factor on the exact relativistic redshift (0 off)
+                precession = 1.0    f_sp, factor on the 1PN terms of the orbit (0 off)
+                plummer_mass = 0.0  [Msun] total mass of a Plummer sphere on the mass
+                plummer_scale       [au] its scale radius b (> 0, needed with a mass)
     [stars.NAME]  a [mas] > 0, 0 <= e < 1, inc [deg] in [0, 180], node and
                 peri_arg [deg] in [0, 360), t_peri [Julian yr] a pericentre epoch
     [[campaigns]]  one per campaign:
@@ -30,8 +34,14 @@ units; keys marked ``opt`` may be left out, any key not listed is an error::
 
 Model: frame positions ra = x0 + vx0 (t - t_ref) + east(t), dec = y0 + vy0
 (t - t_ref) + north(t); positions relative to the mass are east(t), north(t);
-RV = vz0 + v_z(t); Gaussian noise with the stated errors; periods from Kepler's
-third law with the shared mass and distance.  Epochs are rounded to 1e-5 yr
+RV = vz0 + v_z(t) (+ f times the exact redshift excess); Gaussian noise with the
+stated errors; periods from Kepler's third law with the shared mass and
+distance.  With the Romer delay the orbit is taken at the emission epoch.  With
+precession or a Plummer mass the orbit is integrated (deepwell.pn) from the
+star's elements taken as osculating Keplerian elements at its apocentre epoch
+t_peri + P/2; truth.json then also gives each star's ``osculating_epoch``.  The
+effects are evaluated with the relativity kernels directly, not through the
+fitter's model.  Epochs are rounded to 1e-5 yr
 before the model is evaluated, positions and their errors to 1e-4 mas,
 velocities and their errors to 1e-3 km/s.
 """
@@ -51,11 +61,12 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .constants import DEFAULT_REFERENCE_EPOCH
+from .constants import DEFAULT_REFERENCE_EPOCH, KMS_PER_AU_PER_YR
 from .errors import DeepwellError, OutputError, SettingsError
 from .orbit import keplerian_track, period_from_a
+from .relativity import emission_epochs, pn_track, redshift_velocity
 
-__all__ = ["Shared", "Star", "Campaign", "ScenarioDescription", "SimulatedData",
+__all__ = ["Shared", "Star", "Campaign", "SimEffects", "ScenarioDescription", "SimulatedData",
            "load_description", "simulate", "truth_parameters", "write_scenario", "main"]
 
 POSITION_COLUMNS = ("star", "epoch", "ra", "dec", "ra_err", "dec_err", "dataset", "relative_to")
@@ -97,6 +108,21 @@ class Star:
 
 
 @dataclass(frozen=True)
+class SimEffects:
+    """True strengths of the relativistic effects and of a Plummer sphere."""
+
+    romer: bool = True
+    redshift: float = 1.0  # f
+    precession: float = 1.0  # f_sp
+    plummer_mass: float = 0.0  # Msun, total
+    plummer_scale: float | None = None  # au
+
+    @property
+    def integrated(self):
+        return self.precession != 0.0 or self.plummer_mass != 0.0
+
+
+@dataclass(frozen=True)
 class Campaign:
     """One observing campaign; see the module docstring for the meaning of each field."""
 
@@ -127,6 +153,7 @@ class ScenarioDescription:
     campaigns: tuple
     source: str = ""
     text: str = field(default="", repr=False, compare=False)
+    effects: SimEffects = SimEffects()
 
 
 @dataclass(frozen=True)
@@ -272,14 +299,7 @@ def load_description(path):
                     distance=t.number("distance", lo=0.0, lo_open=True),
                     **{k: t.number(k, 0.0) for k in ("x0", "y0", "vx0", "vy0", "vz0")})
     t.finish()
-    fx = _Table(top.get("effects", {}), ("effects",), path, lines)
-    unsupported = "not supported yet by the simulator (only the Newtonian value {} is accepted)"
-    if fx.get("romer", False) is not False:
-        fx.fail("romer", "romer = true is " + unsupported.format("false"))
-    for key in ("redshift", "precession"):
-        if fx.number(key, 0.0) != 0.0:
-            fx.fail(key, f"{key} != 0 is " + unsupported.format("0.0"))
-    fx.finish()
+    effects = _read_effects(_Table(top.get("effects", {}), ("effects",), path, lines))
     star_tables = top.get("stars")
     if not isinstance(star_tables, dict) or not star_tables:
         top.fail("stars", "needs at least one [stars.NAME] table")
@@ -306,7 +326,21 @@ def load_description(path):
             c.fail("dataset", "a data set name may be reused only with the same kind and frame")
     top.finish()
     return ScenarioDescription(name, story, seed, ref, shared, tuple(stars), tuple(campaigns),
-                               str(path), text)
+                               str(path), text, effects)
+
+
+def _read_effects(fx):
+    romer = fx.get("romer", True)
+    if not isinstance(romer, bool):
+        fx.fail("romer", f"must be true or false, got {romer!r}")
+    out = SimEffects(romer=romer, redshift=fx.number("redshift", 1.0, lo=-10.0, hi=10.0),
+                     precession=fx.number("precession", 1.0, lo=-10.0, hi=10.0),
+                     plummer_mass=fx.number("plummer_mass", 0.0, lo=0.0),
+                     plummer_scale=fx.number("plummer_scale", None, lo=0.0, lo_open=True))
+    if out.plummer_mass > 0.0 and out.plummer_scale is None:
+        fx.fail("plummer_mass", "a Plummer mass needs plummer_scale (au)")
+    fx.finish()
+    return out
 
 
 def truth_parameters(description):
@@ -324,9 +358,11 @@ def _truth_record(description):
         period = float(period_from_a(el["a"], shared.mass, shared.distance))
         pericentre = el["a"] * (1.0 - el["e"]) * 1e-3 * shared.distance  # a[au] = a["] R0[pc]
         stars[name] = {**el, "period": period, "pericentre": pericentre}
+        if description.effects.integrated:
+            stars[name]["osculating_epoch"] = el["t_peri"] + 0.5 * period
     return {"scenario": description.name, "story": description.story, "seed": description.seed,
             "reference_epoch": description.reference_epoch, "units": UNITS,
-            "shared": asdict(shared), "stars": stars}
+            "shared": asdict(shared), "stars": stars, "effects": asdict(description.effects)}
 
 
 def _observe(description, camp, rng):
@@ -342,14 +378,18 @@ def _observe(description, camp, rng):
     sh = description.shared
     angles = np.radians([el["inc"], el["node"], el["peri_arg"]])
     period = period_from_a(el["a"], sh.mass, sh.distance)
-    track = keplerian_track(t, el["a"], el["e"], *angles, el["t_peri"], period, sh.distance)
+    track = _true_track(t, el, angles, period, sh, description.effects)
     if camp.max_separation is not None:
         keep &= np.hypot(track.east, track.north) <= camp.max_separation
     size, names = int(keep.sum()), np.array([s.name for s in stars])[idx][keep]
     t = t[keep]
     if camp.kind == "velocities":
         err = np.round(rng.uniform(*camp.error, size), 3)
-        vr = sh.vz0 + track.v_z[keep] + err * rng.standard_normal(size)
+        fx = description.effects
+        v_sq = track.v_east**2 + track.v_north**2 + track.v_z**2
+        r_au = np.sqrt(track.east**2 + track.north**2 + track.z**2) * 1e-3 * sh.distance
+        vr = redshift_velocity(track.v_z, v_sq, r_au, sh.mass, f=fx.redshift, vz0=sh.vz0)
+        vr = vr[keep] + err * rng.standard_normal(size)
         return pd.DataFrame({"star": names, "epoch": t, "vr": np.round(vr, 3), "vr_err": err,
                              "dataset": camp.dataset})
     ra_err, dec_err = (np.round(rng.uniform(*camp.error, size), 4) for _ in range(2))
@@ -362,6 +402,41 @@ def _observe(description, camp, rng):
     return pd.DataFrame({"star": names, "epoch": t, "ra": np.round(ra, 4), "dec": np.round(dec, 4),
                          "ra_err": ra_err, "dec_err": dec_err, "dataset": camp.dataset,
                          "relative_to": camp.relative_to, "corr": camp.corr})
+
+
+@dataclass(frozen=True)
+class _Track:
+    """Sky offsets (mas), z (mas) and velocities in km/s of simulated rows."""
+
+    east: np.ndarray
+    north: np.ndarray
+    z: np.ndarray
+    v_east: np.ndarray
+    v_north: np.ndarray
+    v_z: np.ndarray
+
+
+def _true_track(t, el, angles, period, sh, fx):
+    """True track at observed epochs ``t`` with the description's effects.
+
+    Evaluated straight from the kernels (deepwell.orbit, deepwell.relativity),
+    not through the fitter's model, so that a slip in that wiring cannot hide.
+    """
+    kms = sh.distance * 1e-3 * KMS_PER_AU_PER_YR  # mas/yr -> km/s
+    if fx.integrated:
+        a_au = el["a"] * 1e-3 * sh.distance
+        tr = pn_track(t[:, None], a_au, el["e"], *angles, el["t_peri"], sh.mass,
+                      el["t_peri"] + 0.5 * period, f_sp=fx.precession, m_ext=fx.plummer_mass,
+                      b_ext=fx.plummer_scale, light_time=fx.romer, steps_per_orbit=96)
+        to_mas = 1e3 / sh.distance
+        return _Track(*(x[:, 0] * to_mas for x in (tr.east, tr.north, tr.z)),
+                      *(x[:, 0] for x in (tr.v_east, tr.v_north, tr.v_z)))
+    args = (el["a"], el["e"], *angles, el["t_peri"], period, sh.distance)
+    t_em = t
+    if fx.romer:
+        t_em = emission_epochs(t, lambda tt: keplerian_track(tt, *args).z * 1e-3 * sh.distance)
+    tr = keplerian_track(t_em, *args)
+    return _Track(tr.east, tr.north, tr.z, tr.v_east * kms, tr.v_north * kms, tr.v_z)
 
 
 def simulate(description, rng=None):
