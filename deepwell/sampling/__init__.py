@@ -1,0 +1,25 @@
+"""Posterior sampling of the joint model (emcee ensembles, checkpoints, convergence).
+
+Public API::
+
+    sample_posterior(result, ...) -> PosteriorResult     # the joint model
+    run_ensemble(log_prob, p0, rng, ...) -> EnsembleRun  # generic sampler core
+
+Modules: :mod:`.core` (the loop over emcee moves), :mod:`.backend` (HDF5
+checkpoints), :mod:`.convergence` (autocorrelation, R-hat, quantiles),
+:mod:`.target` (log-posterior, implied priors, analytic marginalisation),
+:mod:`.posterior` (``sample_posterior`` and its result).
+"""
+
+from .backend import CheckpointError, CheckpointMismatch
+from .convergence import RHAT_MAX, RUN_TAUS, gelman_rubin, split_rhat
+from .core import EnsembleRun, NoProgress, default_moves, run_ensemble
+from .posterior import PosteriorResult, Summary, sample_posterior
+from .target import LINEAR_TERMS, LogPosterior, SamplingWarning
+
+__all__ = [
+    "sample_posterior", "PosteriorResult", "Summary", "run_ensemble", "EnsembleRun",
+    "NoProgress", "default_moves", "LogPosterior", "LINEAR_TERMS", "SamplingWarning",
+    "CheckpointError", "CheckpointMismatch", "gelman_rubin", "split_rhat", "RHAT_MAX",
+    "RUN_TAUS",
+]

@@ -1,0 +1,139 @@
+"""Convergence diagnostics: autocorrelation times, burn-in, split R-hat, quantiles.
+
+The rule deepwell applies (stated in every result):
+
+1. Integrated autocorrelation time tau of every sampled parameter, from the
+   ensemble average of the walkers' autocorrelation functions with Sokal's
+   automatic window (``emcee.autocorr.integrated_time``).
+2. Burn-in: the first ``BURN_TAUS`` tau of each ensemble are discarded (at
+   most half the run).
+3. Each ensemble's kept part must be at least ``RUN_TAUS`` = 50 tau long for
+   the largest tau.
+4. Split R-hat (Gelman et al. 2013, BDA3, eqs. 11.1-11.4) across at least two
+   independent ensembles (different seeds), each ensemble's kept part split
+   in two halves, must be below ``RHAT_MAX`` for every parameter.
+"""
+
+import numpy as np
+from emcee.autocorr import integrated_time
+
+__all__ = ["RUN_TAUS", "BURN_TAUS", "RHAT_MAX", "autocorr_times", "burn_in", "enough_taus",
+           "gelman_rubin", "split_rhat", "quantile_summary"]
+
+RUN_TAUS = 50
+BURN_TAUS = 5
+RHAT_MAX = 1.01
+
+
+def autocorr_times(chain, thin=1):
+    """Integrated autocorrelation time of every parameter, in steps.
+
+    Parameters
+    ----------
+    chain : ndarray, shape (n_stored, n_walkers, n_dim)
+        Stored every ``thin`` steps.
+
+    Returns
+    -------
+    ndarray, shape (n_dim,)
+        tau in steps (nan for a chain too short to say anything).
+    """
+    if chain.shape[0] < 4:
+        return np.full(chain.shape[-1], np.nan)
+    tau = integrated_time(chain, tol=0, quiet=True)
+    return np.asarray(tau, float) * thin
+
+
+def burn_in(chain, thin=1):
+    """Stored samples to discard: BURN_TAUS times the largest tau, at most half."""
+    n = chain.shape[0]
+    tau = autocorr_times(chain[n // 2:], thin)
+    if not np.all(np.isfinite(tau)):
+        return n // 2
+    return int(min(np.ceil(BURN_TAUS * np.max(tau) / thin), n // 2))
+
+
+def enough_taus(chain, thin=1):
+    """True when the kept part is at least RUN_TAUS times its largest tau."""
+    kept = chain[burn_in(chain, thin):]
+    tau = autocorr_times(kept, thin)
+    return bool(np.all(np.isfinite(tau)) and kept.shape[0] * thin >= RUN_TAUS * np.max(tau))
+
+
+def gelman_rubin(chains):
+    """Potential scale reduction R-hat of m chains of n draws.
+
+    Parameters
+    ----------
+    chains : ndarray, shape (m, n, ...) with m >= 2
+
+    Returns
+    -------
+    ndarray, shape (...)
+
+    Notes
+    -----
+    Gelman et al. 2013, Bayesian Data Analysis, 3rd ed., section 11.4::
+
+        B = n/(m-1) sum_j (mean_j - mean)^2          (between chains)
+        W = 1/m sum_j s_j^2,  s_j^2 = 1/(n-1) sum_i (x_ij - mean_j)^2
+        var+ = (n-1)/n W + B/n                        (eq. 11.3)
+        R-hat = sqrt(var+ / W)                        (eq. 11.4)
+    """
+    x = np.asarray(chains, float)
+    m, n = x.shape[:2]
+    if m < 2 or n < 2:
+        raise ValueError("R-hat needs at least 2 chains of at least 2 draws")
+    means = x.mean(axis=1)
+    b = n * means.var(axis=0, ddof=1)
+    w = x.var(axis=1, ddof=1).mean(axis=0)
+    var_plus = (n - 1) / n * w + b / n
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.sqrt(var_plus / w)
+
+
+def split_rhat(ensembles):
+    """R-hat across ensembles, each split into its first and second half.
+
+    Parameters
+    ----------
+    ensembles : sequence of ndarray, each (n_steps, n_walkers, n_dim)
+        Kept samples of independent ensembles; the walkers of one ensemble are
+        pooled into one chain (they are not independent of each other).
+
+    Returns
+    -------
+    ndarray, shape (n_dim,)
+    """
+    n = min(e.shape[0] for e in ensembles) // 2
+    if n < 1:
+        return np.full(ensembles[0].shape[-1], np.nan)
+    halves = []
+    for e in ensembles:
+        e = e[e.shape[0] - 2 * n:]
+        for part in (e[:n], e[n:]):
+            halves.append(part.reshape(-1, part.shape[-1]))
+    return gelman_rubin(np.stack(halves))
+
+
+def quantile_summary(samples, angle=False):
+    """Median and 16th/84th percentiles of samples (last axis pooled first).
+
+    For angles (degrees) the samples are wrapped around their circular mean
+    before the percentiles are taken and the median is returned in [0, 360).
+
+    Returns
+    -------
+    tuple of float
+        ``(median, p16, p84)``.
+    """
+    x = np.asarray(samples, float).ravel()
+    shift = 0.0
+    if angle:
+        rad = np.radians(x)
+        centre = np.degrees(np.arctan2(np.sin(rad).mean(), np.cos(rad).mean()))
+        x = centre + (x - centre + 180.0) % 360.0 - 180.0
+        med = np.median(x)
+        shift = np.mod(med, 360.0) - med
+    p16, med, p84 = np.percentile(x, [16, 50, 84])
+    return float(med + shift), float(p16 + shift), float(p84 + shift)

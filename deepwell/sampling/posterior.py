@@ -1,0 +1,357 @@
+"""Posterior sampling of a joint fit: :func:`sample_posterior` and its result."""
+
+import multiprocessing
+import os
+import time
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass
+from pathlib import Path
+
+import emcee
+import numpy as np
+import pandas as pd
+
+from ..parameters import EXTRA
+from ..results import UNITS, physical_labels, physical_vector
+from .backend import fingerprint
+from .convergence import (BURN_TAUS, RHAT_MAX, RUN_TAUS, autocorr_times, burn_in, enough_taus,
+                          quantile_summary, split_rhat)
+from .core import default_moves, run_ensemble
+from .target import LogPosterior, SamplingWarning
+
+__all__ = ["Summary", "PosteriorResult", "sample_posterior", "start_positions"]
+
+_ANGLES = ("node", "peri_arg")
+
+
+@dataclass(frozen=True)
+class Summary:
+    """One reported quantity: median and the 16th/84th percentiles.
+
+    ``lower`` and ``upper`` are the percentiles themselves (not offsets);
+    ``sigma`` is half the 68% width, (upper - lower) / 2.
+    """
+
+    label: str
+    unit: str
+    value: float
+    lower: float
+    upper: float
+    sigma: float
+
+
+@dataclass(frozen=True)
+class PosteriorResult:
+    """Posterior samples of a joint fit and their convergence diagnostics.
+
+    Attributes
+    ----------
+    labels, units : tuple of str
+        Reported quantities (as :func:`deepwell.results.physical_labels`) and units.
+    samples : ndarray, shape (n_ensembles, n_draws, n_walkers, n_labels)
+        Reported quantities after burn-in, every ``thin`` steps; angles in
+        degrees, unwrapped.
+    internal_names : tuple of str
+    internal_samples : ndarray, shape (n_ensembles, n_draws, n_walkers, n_internal)
+        Full internal vectors (integrated-out frame terms drawn from their
+        conditional Gaussian per sample).
+    log_prob : ndarray, shape (n_ensembles, n_draws, n_walkers)
+    sampled_names : tuple of str
+        Internal parameters the walkers moved in.
+    acceptance : ndarray, shape (n_ensembles, n_walkers)
+    tau : ndarray, shape (n_sampled,)
+        Integrated autocorrelation time per sampled parameter (steps, largest
+        over the ensembles).
+    rhat : ndarray, shape (n_sampled,)
+        Split R-hat across the independent ensembles.
+    n_steps, burn : tuple of int
+        Steps run and steps discarded as burn-in, per ensemble.
+    thin : int
+    n_walkers : int
+    converged : bool
+    statement : str
+        Plain-English convergence statement (starts with "CONVERGED" or
+        "NOT CONVERGED").
+    implied_priors : tuple of str
+    marginalised : tuple of str
+        Frame terms integrated out analytically.
+    stop_reasons : tuple of str
+    elapsed : float
+        Wall time of the sampling in s.
+    seed : int
+    """
+
+    labels: tuple
+    units: tuple
+    samples: np.ndarray
+    internal_names: tuple
+    internal_samples: np.ndarray
+    log_prob: np.ndarray
+    sampled_names: tuple
+    acceptance: np.ndarray
+    tau: np.ndarray
+    rhat: np.ndarray
+    n_steps: tuple
+    burn: tuple
+    thin: int
+    n_walkers: int
+    converged: bool
+    statement: str
+    implied_priors: tuple
+    marginalised: tuple
+    stop_reasons: tuple
+    elapsed: float
+    seed: int
+
+    @property
+    def flat_samples(self):
+        """All draws of the reported quantities, shape (n_draws_total, n_labels)."""
+        return self.samples.reshape(-1, self.samples.shape[-1])
+
+    @property
+    def ess(self):
+        """Effective sample size per sampled parameter (all ensembles)."""
+        kept = sum(n - b for n, b in zip(self.n_steps, self.burn))
+        return kept * self.n_walkers / self.tau
+
+    def quantity(self, label):
+        """:class:`Summary` of one reported quantity."""
+        i = self.labels.index(label)
+        angle = label.split(":")[-1] in _ANGLES
+        med, lo, hi = quantile_summary(self.samples[..., i], angle=angle)
+        return Summary(label, self.units[i], med, lo, hi, 0.5 * (hi - lo))
+
+    @property
+    def summary(self):
+        """:class:`Summary` of every reported quantity, in label order."""
+        return tuple(self.quantity(lab) for lab in self.labels)
+
+
+# ------------------------------------------------------------------ helpers
+def _data_hash(result):
+    obs = result.observations
+    parts = []
+    for df in (obs.positions, obs.velocities):
+        cols = [c for c in df.columns if c not in ("line", "file")]
+        parts.append(pd.util.hash_pandas_object(df[cols], index=False).to_numpy().tobytes().hex())
+    return fingerprint(parts)
+
+
+def start_positions(target, result, n_walkers, rng, max_rounds=200):
+    """Walkers drawn from the least-squares solution and its covariance.
+
+    Draws outside the support are redrawn; after ``max_rounds`` the spread is
+    halved and the search repeats.
+    """
+    mean = target.base[target.sampled]
+    cov = target.start_cov(result.internal_cov)
+    w, v = np.linalg.eigh(0.5 * (cov + cov.T))
+    floor = 1e-12 * np.maximum(np.abs(mean), 1e-6) ** 2
+    root = v * np.sqrt(np.maximum(w, 0.0))
+    p0 = np.empty((n_walkers, len(mean)))
+    todo = np.arange(n_walkers)
+    scale = 1.0
+    for round_ in range(10 * max_rounds):
+        z = rng.standard_normal((len(todo), len(mean)))
+        trial = mean + scale * (z @ root.T) + np.sqrt(floor) * rng.standard_normal(z.shape)
+        ok = np.isfinite(target(trial))
+        p0[todo[ok]] = trial[ok]
+        todo = todo[~ok]
+        if todo.size == 0:
+            return p0
+        if (round_ + 1) % max_rounds == 0:
+            scale *= 0.5
+    raise RuntimeError("could not place the walkers inside the prior support")
+
+
+def _unit(label):
+    name = label.split(":")[-1]
+    return UNITS[name] if name in UNITS else EXTRA[name].unit
+
+
+def _stop_rule(chain, thin):
+    return enough_taus(chain, thin)
+
+
+_JOBS = {}
+
+
+def _run_job(k):
+    job = _JOBS[k]
+    return run_ensemble(**job)
+
+
+def _run_all(jobs, processes):
+    if processes <= 1 or len(jobs) == 1:
+        return [run_ensemble(**job) for job in jobs]
+    _JOBS.clear()
+    _JOBS.update(enumerate(jobs))
+    ctx = multiprocessing.get_context("fork")
+    try:
+        with ProcessPoolExecutor(max_workers=processes, mp_context=ctx) as pool:
+            return list(pool.map(_run_job, range(len(jobs))))
+    finally:
+        _JOBS.clear()
+
+
+def _moves(moves):
+    if moves is None or moves == "de":
+        return default_moves()
+    if moves == "stretch":
+        return [(emcee.moves.StretchMove(), 1.0)]
+    return list(moves)
+
+
+def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens):
+    problems = []
+    for k, (run, b) in enumerate(zip(runs, burns)):
+        kept = run.n_steps - b
+        tmax = np.nanmax(tau) if np.any(np.isfinite(tau)) else np.nan
+        if not np.isfinite(tmax) or kept < RUN_TAUS * tmax:
+            if run.stop_reason == "max_time":
+                why = f"the time budget (max_time={max_time} s) ended the run"
+            elif run.stop_reason == "n_steps":
+                why = f"the fixed number of steps (n_steps={n_steps}) ended the run"
+            elif run.stop_reason == "max_steps":
+                why = "the step cap (max_steps) ended the run"
+            else:
+                why = "the rule was met at the last check but not on the final estimate"
+            ratio = kept / tmax if np.isfinite(tmax) else float("nan")
+            problems.append(f"ensemble {k}: {kept} steps kept after burn-in = {ratio:.1f} "
+                            f"autocorrelation times (need {RUN_TAUS}); {why}")
+    bad = np.flatnonzero(~(rhat < RHAT_MAX))
+    if bad.size:
+        worst = bad[np.argmax(np.nan_to_num(rhat[bad], nan=np.inf))]
+        problems.append(f"R-hat across {n_ens} independent ensembles is {rhat[worst]:.3f} for "
+                        f"{names[worst]} (need < {RHAT_MAX}; {bad.size} parameter(s) fail)")
+    if n_ens < 2:
+        problems.append("only one ensemble: R-hat across independent ensembles is unavailable")
+    worst_tau = names[int(np.nanargmax(tau))] if np.any(np.isfinite(tau)) else "n/a"
+    rule = (f"rule: at least {RUN_TAUS} autocorrelation times per ensemble after discarding "
+            f"{BURN_TAUS} as burn-in, and split R-hat < {RHAT_MAX} across >= 2 ensembles")
+    facts = (f"largest autocorrelation time {np.nanmax(tau):.0f} steps ({worst_tau}); "
+             f"largest R-hat {np.nanmax(rhat):.4f}" if np.any(np.isfinite(tau)) else "")
+    if problems:
+        return False, ("NOT CONVERGED: the uncertainties below may be too small or biased. "
+                       + "; ".join(problems) + f". ({rule}; {facts})")
+    return True, f"CONVERGED ({rule}): {facts}."
+
+
+def sample_posterior(result, n_walkers=None, n_steps=None, seed=0, checkpoint=None,
+                     resume=False, progress=True, max_time=None, *, n_ensembles=2,
+                     processes=None, marginalise=True, moves="de", thin=None,
+                     checkpoint_every=500, check_every=500, max_steps=100_000,
+                     max_draws=20_000):
+    """Sample the posterior of a joint fit with independent emcee ensembles.
+
+    Parameters
+    ----------
+    result : deepwell.results.FitResult
+        The least-squares fit: model, settings and starting point.
+    n_walkers : int, optional
+        Walkers per ensemble (default 2 n_dim + 2; at least 2 n_dim).
+    n_steps : int, optional
+        Steps per ensemble.  None: run until the convergence rule holds
+        (checked every ``check_every`` steps), at most ``max_steps``.
+    seed : int
+        Seed of the numpy SeedSequence; ensemble k uses child k.  Nothing is
+        seeded globally.
+    checkpoint : path, optional
+        Folder for one HDF5 checkpoint per ensemble (``ensemble_<k>.h5``),
+        written every ``checkpoint_every`` steps.
+    resume : bool
+        Continue the runs in ``checkpoint`` exactly where they stopped;
+        refused (CheckpointMismatch) if data, settings or options differ.
+    progress : bool
+        Show a progress bar per ensemble.
+    max_time : float, optional
+        Wall-time budget per ensemble in s.
+    n_ensembles : int
+        Independent ensembles (>= 2 for R-hat).
+    processes : int, optional
+        Ensembles run in parallel (default: min(n_ensembles, CPU count)).
+    marginalise : bool or sequence of str
+        Integrate the frame terms out analytically (see
+        :mod:`deepwell.sampling.target`).
+    moves : {"de", "stretch"} or list of (move, weight)
+        "de": differential evolution 80% + snooker 20%; "stretch": emcee's
+        affine-invariant stretch move.
+    thin : int, optional
+        Store every ``thin``-th step (default max(1, n_dim // 8)).
+    max_draws : int
+        Keep at most about this many draws per ensemble in the result.
+
+    Returns
+    -------
+    PosteriorResult
+
+    Notes
+    -----
+    Log-posterior = -1/2 sum(residuals^2) (data, Gaussian priors, penalties of
+    :meth:`JointModel.residuals`) + Jacobians of priors on reported
+    quantities, -inf outside the bounds; the implied priors are listed in
+    ``PosteriorResult.implied_priors``.
+    """
+    t0 = time.monotonic()
+    target = LogPosterior(result, marginalise=marginalise)
+    ndim = len(target.sampled)
+    n_walkers = int(n_walkers or 2 * ndim + 2)
+    n_walkers += n_walkers % 2
+    if n_walkers < 2 * ndim:
+        raise ValueError(f"n_walkers={n_walkers} is below twice the {ndim} sampled parameters")
+    thin = int(thin or max(1, ndim // 8))
+    mv = _moves(moves)
+    processes = processes or min(n_ensembles, os.cpu_count() or 1)
+    base_hash = fingerprint(
+        _data_hash(result), result.settings.raw, result.settings.reference_epoch,
+        list(result.model.stars), target.names, [target.model.layout.names()[i]
+                                                 for i in target.marginal],
+        target.base[~np.isin(np.arange(len(target.base)), target.sampled)].tolist(),
+        n_walkers, seed)
+    jobs = []
+    for k in range(n_ensembles):
+        rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(k,))))
+        p0 = start_positions(target, result, n_walkers, rng)
+        jobs.append(dict(
+            log_prob=target, p0=p0, rng=rng, n_steps=n_steps, moves=mv, thin=thin,
+            checkpoint=None if checkpoint is None else Path(checkpoint) / f"ensemble_{k}.h5",
+            fingerprint=f"{base_hash}|ensemble={k}", resume=resume,
+            checkpoint_every=checkpoint_every, max_time=max_time, progress=progress,
+            stop_rule=_stop_rule, check_every=check_every, max_steps=max_steps,
+            desc=f"ensemble {k}", position=k))
+    runs = _run_all(jobs, processes)
+    return _assemble(result, target, runs, seed, n_steps, max_time, max_draws,
+                     time.monotonic() - t0)
+
+
+def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed):
+    thin = runs[0].thin
+    burns = [burn_in(r.chain, thin) for r in runs]
+    kept = [r.chain[b:] for r, b in zip(runs, burns)]
+    taus = np.array([autocorr_times(c, thin) for c in kept])
+    tau = np.nanmax(taus, axis=0) if np.any(np.isfinite(taus)) else taus[0]
+    rhat = split_rhat(kept) if len(runs) > 1 else np.full(len(target.names), np.nan)
+    converged, text = _statement(runs, [b * thin for b in burns], tau, rhat, target.names,
+                                 n_steps, max_time, len(runs))
+    if not converged:
+        import warnings
+        warnings.warn(SamplingWarning(text), stacklevel=3)
+    n = min(c.shape[0] for c in kept)
+    step = max(1, int(np.ceil(n * runs[0].chain.shape[1] / max_draws)))
+    theta = np.stack([c[c.shape[0] - n:][::-1][::step][::-1] for c in kept])
+    lps = np.stack([r.log_prob[b:][r.log_prob.shape[0] - b - n:][::-1][::step][::-1]
+                    for r, b in zip(runs, burns)])
+    rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(1000,))))
+    internal = target.recover_linear(theta, rng)
+    lay = target.model.layout
+    labels = tuple(physical_labels(lay))
+    return PosteriorResult(
+        labels=labels, units=tuple(_unit(lab) for lab in labels),
+        samples=physical_vector(lay, internal), internal_names=tuple(lay.names()),
+        internal_samples=internal, log_prob=lps, sampled_names=tuple(target.names),
+        acceptance=np.stack([r.acceptance for r in runs]), tau=tau, rhat=rhat,
+        n_steps=tuple(r.n_steps for r in runs), burn=tuple(b * thin for b in burns),
+        thin=thin * step, n_walkers=runs[0].chain.shape[1], converged=converged,
+        statement=text, implied_priors=target.implied_priors(),
+        marginalised=tuple(lay.names()[i] for i in target.marginal),
+        stop_reasons=tuple(r.stop_reason for r in runs), elapsed=elapsed, seed=seed)
