@@ -13,11 +13,11 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from deepwell.fit import build_model
+from deepwell.fit import build_model, fit_joint
 from deepwell.parameters import EXTRA, internal_star_values
-from deepwell.sampling import (CheckpointMismatch, LogPosterior, gelman_rubin, run_ensemble,
-                               split_rhat)
-from deepwell.sampling.convergence import autocorr_times
+from deepwell.sampling import (CheckpointMismatch, LogPosterior, SamplingWarning, gelman_rubin,
+                               run_ensemble, sample_posterior, split_rhat)
+from deepwell.sampling.convergence import autocorr_times, quantile_summary
 from deepwell.settings import parse_settings
 from deepwell.tables import read_observations
 
@@ -232,3 +232,33 @@ def test_exact_redshift_keeps_vz0_sampled():
     target = LogPosterior(res, marginalise=True)
     assert "vz0" in target.names
     assert {"x0", "y0", "vx0", "vy0"}.isdisjoint(target.names)
+
+
+# ------------------------------------------------------------ whole pipeline
+def test_angle_percentiles_do_not_break_at_the_360_degree_wrap():
+    """Percentiles of an angle scattered around 0 deg: wrapping must give the
+    same numbers as the unwrapped samples (numpy.percentile as the reference)."""
+    raw = np.random.default_rng(8).normal(0.0, 2.0, 20001)
+    med, lo, hi = quantile_summary(np.mod(raw, 360.0), angle=True)
+    p16, p50, p84 = np.percentile(raw, [16, 50, 84])
+    assert np.mod(med, 360.0) == pytest.approx(np.mod(p50, 360.0), abs=1e-9)
+    assert hi - lo == pytest.approx(p84 - p16, abs=1e-9)
+
+
+def test_short_run_on_sparse_demo_says_not_converged_and_summarises_correctly():
+    """A run cut short by n_steps must say NOT CONVERGED and why; the summary is
+    the median and 16th/84th percentiles (checked against numpy.percentile)."""
+    obs = read_observations(SCENARIOS / "sparse")
+    fit = fit_joint(obs, parse_settings({"effects": {"romer": False, "redshift": "off",
+                                                     "precession": False}}))
+    with pytest.warns(SamplingWarning, match="NOT CONVERGED"):
+        post = sample_posterior(fit, n_steps=120, progress=False, processes=1)
+    assert post.statement.startswith("NOT CONVERGED")
+    assert "n_steps=120" in post.statement
+    assert not post.converged
+    assert post.samples.shape[:1] == (2,) and post.samples.shape[-1] == len(fit.labels)
+    m = post.quantity("mass")
+    p16, p50, p84 = np.percentile(post.samples[..., post.labels.index("mass")], [16, 50, 84])
+    assert (m.value, m.lower, m.upper) == pytest.approx((p50, p16, p84), rel=1e-12)
+    assert m.sigma == pytest.approx(0.5 * (p84 - p16), rel=1e-12)
+    assert any("sin(i)" in text for text in post.implied_priors)

@@ -36,12 +36,15 @@ def autocorr_times(chain, thin=1):
     Returns
     -------
     ndarray, shape (n_dim,)
-        tau in steps (nan for a chain too short to say anything).
+        tau in steps (nan for a chain too short to say anything, inf when a
+        walker did not move at all in the window).
     """
     if chain.shape[0] < 4:
         return np.full(chain.shape[-1], np.nan)
-    tau = integrated_time(chain, tol=0, quiet=True)
-    return np.asarray(tau, float) * thin
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tau = np.asarray(integrated_time(chain, tol=0, quiet=True), float) * thin
+    # a walker that never moved has no autocorrelation function: tau unmeasurable
+    return np.where(np.isfinite(tau), tau, np.inf)
 
 
 def burn_in(chain, thin=1):

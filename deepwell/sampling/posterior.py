@@ -206,7 +206,7 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens):
     problems = []
     for k, (run, b) in enumerate(zip(runs, burns)):
         kept = run.n_steps - b
-        tmax = np.nanmax(tau) if np.any(np.isfinite(tau)) else np.nan
+        tmax = np.max(tau)
         if not np.isfinite(tmax) or kept < RUN_TAUS * tmax:
             if run.stop_reason == "max_time":
                 why = f"the time budget (max_time={max_time} s) ended the run"
@@ -216,9 +216,13 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens):
                 why = "the step cap (max_steps) ended the run"
             else:
                 why = "the rule was met at the last check but not on the final estimate"
-            ratio = kept / tmax if np.isfinite(tmax) else float("nan")
-            problems.append(f"ensemble {k}: {kept} steps kept after burn-in = {ratio:.1f} "
-                            f"autocorrelation times (need {RUN_TAUS}); {why}")
+            if np.isfinite(tmax):
+                problems.append(f"ensemble {k}: {kept} steps kept after burn-in = "
+                                f"{kept / tmax:.1f} autocorrelation times (need {RUN_TAUS}); "
+                                f"{why}")
+            else:
+                problems.append(f"ensemble {k}: the autocorrelation time cannot be measured "
+                                f"(chain too short or walkers that never moved); {why}")
     bad = np.flatnonzero(~(rhat < RHAT_MAX))
     if bad.size:
         worst = bad[np.argmax(np.nan_to_num(rhat[bad], nan=np.inf))]
@@ -226,11 +230,12 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens):
                         f"{names[worst]} (need < {RHAT_MAX}; {bad.size} parameter(s) fail)")
     if n_ens < 2:
         problems.append("only one ensemble: R-hat across independent ensembles is unavailable")
-    worst_tau = names[int(np.nanargmax(tau))] if np.any(np.isfinite(tau)) else "n/a"
+    ok_tau = np.nan_to_num(tau, nan=np.inf)
+    worst_tau = names[int(np.argmax(ok_tau))]
     rule = (f"rule: at least {RUN_TAUS} autocorrelation times per ensemble after discarding "
             f"{BURN_TAUS} as burn-in, and split R-hat < {RHAT_MAX} across >= 2 ensembles")
-    facts = (f"largest autocorrelation time {np.nanmax(tau):.0f} steps ({worst_tau}); "
-             f"largest R-hat {np.nanmax(rhat):.4f}" if np.any(np.isfinite(tau)) else "")
+    facts = (f"largest autocorrelation time {np.max(ok_tau):.0f} steps ({worst_tau}); "
+             f"largest R-hat {np.max(np.nan_to_num(rhat, nan=np.inf)):.4f}")
     if problems:
         return False, ("NOT CONVERGED: the uncertainties below may be too small or biased. "
                        + "; ".join(problems) + f". ({rule}; {facts})")
@@ -329,7 +334,7 @@ def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed)
     burns = [burn_in(r.chain, thin) for r in runs]
     kept = [r.chain[b:] for r, b in zip(runs, burns)]
     taus = np.array([autocorr_times(c, thin) for c in kept])
-    tau = np.nanmax(taus, axis=0) if np.any(np.isfinite(taus)) else taus[0]
+    tau = np.max(taus, axis=0)  # nan/inf (unmeasurable) propagate: conservative
     rhat = split_rhat(kept) if len(runs) > 1 else np.full(len(target.names), np.nan)
     converged, text = _statement(runs, [b * thin for b in burns], tau, rhat, target.names,
                                  n_steps, max_time, len(runs))
