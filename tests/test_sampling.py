@@ -173,11 +173,12 @@ def test_rhat_near_one_for_independent_ensembles_and_large_for_separated_modes()
 
 
 # ----------------------------------------------------- analytic marginalising
-def _tiny_orbit_problem(effects):
+def _tiny_orbit_problem(effects, priors=None):
     """Sparse demo, one star, at its true elements (scenario truth file)."""
     obs = read_observations(SCENARIOS / "sparse")
     truth = json.loads((SCENARIOS / "sparse" / "truth.json").read_text())
-    settings = parse_settings({"effects": effects})
+    stars = {s: {"prior": p} for s, p in (priors or {}).items()}
+    settings = parse_settings({"effects": effects, "stars": stars})
     model = build_model(obs, settings)
     model = model.for_stars(model.stars[:1]) if hasattr(model, "for_stars") else model
     lay = model.layout
@@ -262,3 +263,24 @@ def test_short_run_on_sparse_demo_says_not_converged_and_summarises_correctly():
     assert (m.value, m.lower, m.upper) == pytest.approx((p50, p16, p84), rel=1e-12)
     assert m.sigma == pytest.approx(0.5 * (p84 - p16), rel=1e-12)
     assert any("sin(i)" in text for text in post.implied_priors)
+
+
+def test_prior_on_a_carries_the_jacobian_of_the_sampled_period():
+    """A Gaussian prior on a, sampled in period: log p gains log|da/dP| =
+    log(2 a / 3 P) (Kepler's third law, a^3 proportional to P^2 at fixed mass
+    and distance); a recomputed here from physics.md section 1 with
+    k = 1.0000377738 [computed]."""
+    base = {"romer": False, "redshift": "off", "precession": False}
+    plain = _tiny_orbit_problem(base)
+    star = plain.model.stars[0]
+    mean, sigma = 200.0, 15.0
+    with_prior = _tiny_orbit_problem(base, priors={star: {"a": {"mean": mean, "sigma": sigma}}})
+    t0, t1 = LogPosterior(plain, False), LogPosterior(with_prior, False)
+    theta = t0.base[t0.sampled]
+    lay = plain.model.layout
+    period = theta[t0.names.index("s0_period")]
+    mass, dist = theta[t0.names.index("mass")], theta[t0.names.index("distance")]
+    a = (period**2 * mass / 1.0000377738) ** (1.0 / 3.0) / dist * 1e3
+    expected = -0.5 * ((a - mean) / sigma) ** 2 + np.log(2.0 * a / (3.0 * period))
+    assert lay.names() == with_prior.model.layout.names()
+    assert float(t1(theta) - t0(theta)) == pytest.approx(expected, rel=1e-9)
