@@ -189,8 +189,6 @@ def effects_from_args(settings, romer=None, redshift=None, precession=None,
     deepwell.settings.Settings
         A new, validated settings object.
     """
-    from .settings import SharedSetting  # settings imports this module
-
     table = {} if newtonian else dict(settings.effects)
     if newtonian:
         table.update(romer=False, redshift="off", precession=False, extended_mass=False)

@@ -197,7 +197,7 @@ class JointModel:
         if fx.integrates and self.integrated.any():
             notes.append(
                 "integrated stars ("
-                + ", ".join(s for s, i in zip(self.stars, self.integrated) if i)
+                + ", ".join(s for s, i in zip(self.stars, self.integrated, strict=True) if i)
                 + "): their elements a, e, inc, node, peri_arg, t_peri and period are "
                 "OSCULATING Keplerian elements at each star's apocentre epoch t_peri + P/2; "
                 "the observed pericentre epoch and integrated period differ slightly "
@@ -206,7 +206,7 @@ class JointModel:
             notes.append(
                 "stars kept Keplerian because their precession per orbit is below a tenth of "
                 "their smallest position error: "
-                + ", ".join(s for s, i in zip(self.stars, self.integrated) if not i))
+                + ", ".join(s for s, i in zip(self.stars, self.integrated, strict=True) if not i))
         if fx.extended_mass:
             notes.append(
                 f"extended mass: a Plummer sphere with FIXED scale radius b = "

@@ -47,8 +47,8 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .errors import SettingsError
 from .effects import Effects, parse_effects
+from .errors import SettingsError
 from .parameters import EXTRA, SHARED, STAR_ELEMENTS
 
 __all__ = ["SharedSetting", "StarSetting", "Settings", "load_settings", "Effects"]
