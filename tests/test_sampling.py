@@ -15,8 +15,15 @@ from scipy import integrate
 
 from deepwell.fit import build_model, fit_joint
 from deepwell.parameters import EXTRA, internal_star_values
-from deepwell.sampling import (CheckpointMismatch, LogPosterior, SamplingWarning, gelman_rubin,
-                               run_ensemble, sample_posterior, split_rhat)
+from deepwell.sampling import (
+    CheckpointMismatch,
+    LogPosterior,
+    SamplingWarning,
+    gelman_rubin,
+    run_ensemble,
+    sample_posterior,
+    split_rhat,
+)
 from deepwell.sampling.convergence import autocorr_times, quantile_summary
 from deepwell.settings import parse_settings
 from deepwell.tables import read_observations

@@ -3,6 +3,7 @@
 import multiprocessing
 import os
 import time
+import warnings
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
@@ -14,8 +15,16 @@ import pandas as pd
 from ..parameters import EXTRA
 from ..results import UNITS, physical_labels, physical_vector
 from .backend import fingerprint
-from .convergence import (BURN_TAUS, RHAT_MAX, RUN_TAUS, autocorr_times, burn_in, enough_taus,
-                          quantile_summary, split_rhat)
+from .convergence import (
+    BURN_TAUS,
+    RHAT_MAX,
+    RUN_TAUS,
+    autocorr_times,
+    burn_in,
+    enough_taus,
+    quantile_summary,
+    split_rhat,
+)
 from .core import default_moves, run_ensemble
 from .target import LogPosterior, SamplingWarning
 
@@ -111,7 +120,7 @@ class PosteriorResult:
     @property
     def ess(self):
         """Effective sample size per sampled parameter (all ensembles)."""
-        kept = sum(n - b for n, b in zip(self.n_steps, self.burn))
+        kept = sum(n - b for n, b in zip(self.n_steps, self.burn, strict=False))
         return kept * self.n_walkers / self.tau
 
     def quantity(self, label):
@@ -204,7 +213,7 @@ def _moves(moves):
 
 def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens):
     problems = []
-    for k, (run, b) in enumerate(zip(runs, burns)):
+    for k, (run, b) in enumerate(zip(runs, burns, strict=False)):
         kept = run.n_steps - b
         tmax = np.max(tau)
         if not np.isfinite(tmax) or kept < RUN_TAUS * tmax:
@@ -332,20 +341,19 @@ def sample_posterior(result, n_walkers=None, n_steps=None, seed=0, checkpoint=No
 def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed):
     thin = runs[0].thin
     burns = [burn_in(r.chain, thin) for r in runs]
-    kept = [r.chain[b:] for r, b in zip(runs, burns)]
+    kept = [r.chain[b:] for r, b in zip(runs, burns, strict=False)]
     taus = np.array([autocorr_times(c, thin) for c in kept])
     tau = np.max(taus, axis=0)  # nan/inf (unmeasurable) propagate: conservative
     rhat = split_rhat(kept) if len(runs) > 1 else np.full(len(target.names), np.nan)
     converged, text = _statement(runs, [b * thin for b in burns], tau, rhat, target.names,
                                  n_steps, max_time, len(runs))
     if not converged:
-        import warnings
         warnings.warn(SamplingWarning(text), stacklevel=3)
     n = min(c.shape[0] for c in kept)
     step = max(1, int(np.ceil(n * runs[0].chain.shape[1] / max_draws)))
     theta = np.stack([c[c.shape[0] - n:][::-1][::step][::-1] for c in kept])
     lps = np.stack([r.log_prob[b:][r.log_prob.shape[0] - b - n:][::-1][::step][::-1]
-                    for r, b in zip(runs, burns)])
+                    for r, b in zip(runs, burns, strict=False)])
     rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(1000,))))
     internal = target.recover_linear(theta, rng)
     lay = target.model.layout

@@ -7,8 +7,9 @@ Run from the repository root:
 For each sampler variant (differential evolution + snooker with the frame terms
 integrated out, the same without integrating them out, and emcee's stretch
 move with them integrated out) one ensemble runs ``--steps`` steps from the
-same least-squares start, in the same process, one after the other.  Printed (times are
-CPU times of this process, robust when the machine is shared): seconds per step, integrated autocorrelation time of the slowest sampled
+same least-squares start, in the same process, one after the other.  Printed
+(times are CPU times of this process, robust when the machine is shared):
+seconds per step, integrated autocorrelation time of the slowest sampled
 shared parameter, its effective samples per second, the estimated wall time
 until the convergence rule (55 tau per ensemble, two ensembles on two cores)
 and ratios against the default variant.  tau from a run shorter than 50 tau
@@ -40,6 +41,8 @@ def main(argv=None):
                         help="wall-time budget of --until-converged (s)")
     args = parser.parse_args(argv)
 
+    import emcee
+
     from deepwell.fit import fit_joint
     from deepwell.sampling import LogPosterior, run_ensemble, sample_posterior
     from deepwell.sampling.convergence import RUN_TAUS, autocorr_times, burn_in
@@ -47,7 +50,6 @@ def main(argv=None):
     from deepwell.sampling.posterior import start_positions
     from deepwell.settings import parse_settings
     from deepwell.tables import read_observations
-    import emcee
 
     effects = {"romer": False, "redshift": "off", "precession": False} if args.newtonian else {}
     settings = parse_settings({"effects": effects})
@@ -94,6 +96,21 @@ def main(argv=None):
         print(f"  largest tau {np.max(tau):.0f} steps ({target.names[int(np.argmax(tau))]}); "
               f"estimated time to the rule (55 tau): {t_conv / 60:.1f} min"
               + ("  [run < 50 tau: tau is a lower bound, estimate optimistic]" if short else ""))
+
+    # Cost of one log-posterior call, both target forms interleaved (fair under load).
+    forms = {m: LogPosterior(result, marginalise=m) for m in (True, False)}
+    jitter = np.random.default_rng(1)
+    thetas = {m: t.base[t.sampled] * (1 + 1e-7 * jitter.standard_normal((75, len(t.sampled))))
+              for m, t in forms.items()}
+    cost = {True: [], False: []}
+    for _ in range(20):
+        for m, t in forms.items():
+            c = time.process_time()
+            t(thetas[m])
+            cost[m].append(time.process_time() - c)
+    c_m, c_s = np.median(cost[True]), np.median(cost[False])
+    print(f"\nlog-posterior call, 75 walkers (interleaved, median CPU): marginalised "
+          f"{c_m * 1e3:.1f} ms, sampled frame {c_s * 1e3:.1f} ms (ratio {c_s / c_m:.2f})")
 
     ref = rows["DE+snooker, marginalised"]
     print("\nratios (default variant / other), same run:")
