@@ -15,7 +15,7 @@ import numpy as np
 
 from .model import JointModel, Prior
 from .parameters import EXTRA, SHARED, STAR_INTERNAL
-from .results import FitResult, physical_labels, physical_vector
+from .results import FitResult, physical_labels, physical_owner, physical_vector
 from .start import find_start
 
 __all__ = ["build_model", "fit_joint", "numerical_jacobian", "FitWarning"]
@@ -80,25 +80,52 @@ def _default_steps(model, vec):
     return h
 
 
-def numerical_jacobian(func, vec, free, steps):
+def numerical_jacobian(func, vec, free, steps, layout=None, owner=None):
     """Central-difference Jacobian of ``func`` over the ``free`` entries of ``vec``.
 
-    All 2 n trial vectors are evaluated in one vectorised call.
+    All trial vectors are evaluated in one vectorised call.  With ``layout``
+    and ``owner`` (the star index owning each output row, -1 for rows of
+    shared parameters only), element j of every star is perturbed at once:
+    a row of star k feels only star k's elements, so the 6 grouped differences
+    give the same Jacobian as 6 x n_stars separate ones at a fraction of the
+    cost (column grouping of a block-sparse Jacobian, Curtis, Powell & Reid
+    1974, from memory).
     """
     idx = np.flatnonzero(free)
-    trial = np.repeat(vec[None, :], 2 * len(idx), axis=0)
-    for j, i in enumerate(idx):
-        trial[2 * j, i] += steps[i]
-        trial[2 * j + 1, i] -= steps[i]
+    if layout is None or owner is None:
+        groups = [[i] for i in idx]
+    else:
+        n_sh = layout.n_shared
+        groups = [[i] for i in idx if i < n_sh]
+        for j in range(len(STAR_INTERNAL)):
+            cols = [i for i in idx if i >= n_sh and (i - n_sh) % len(STAR_INTERNAL) == j]
+            if cols:
+                groups.append(cols)
+    trial = np.repeat(np.asarray(vec, float)[None, :], 2 * len(groups), axis=0)
+    for g, cols in enumerate(groups):
+        trial[2 * g, cols] += steps[cols]
+        trial[2 * g + 1, cols] -= steps[cols]
     out = func(trial)
-    return ((out[0::2] - out[1::2]) / (2.0 * steps[idx])[:, None]).T
+    diff = out[0::2] - out[1::2]
+    column = {i: c for c, i in enumerate(idx)}
+    jac = np.zeros((out.shape[-1], len(idx)))
+    for g, cols in enumerate(groups):
+        if len(cols) == 1 and (layout is None or cols[0] < layout.n_shared):
+            jac[:, column[cols[0]]] = diff[g] / (2.0 * steps[cols[0]])
+            continue
+        for i in cols:
+            k = (i - layout.n_shared) // len(STAR_INTERNAL)
+            rows = owner == k
+            jac[rows, column[i]] = diff[g, rows] / (2.0 * steps[i])
+    return jac
 
 
 def covariance(model, vec, free):
     """Covariance of the free internal parameters from J^T J (errors as given)."""
     steps = _default_steps(model, vec)
     for _ in range(2):
-        jac = numerical_jacobian(model.residuals, vec, free, steps)
+        jac = numerical_jacobian(model.residuals, vec, free, steps, model.layout,
+                                 model.residual_owner())
         u, s, vt = np.linalg.svd(jac, full_matrices=False)
         keep = s > s[0] * 1e-12
         cov = (vt[keep].T / s[keep] ** 2) @ vt[keep]
@@ -137,8 +164,10 @@ def minimise(model, vec0, free, lo, hi, max_nfev=None):
     def fun(p):
         return model.residuals(current(p))
 
+    owner = model.residual_owner()
+
     def jac(p):
-        return numerical_jacobian(model.residuals, current(p), free, steps)
+        return numerical_jacobian(model.residuals, current(p), free, steps, model.layout, owner)
 
     mini = lmfit.Minimizer(fun, params, scale_covar=False, calc_covar=False)
     out = mini.minimize(method="least_squares", jac=jac, x_scale="jac", ftol=1e-10,
@@ -177,7 +206,8 @@ def fit_joint(observations, settings, progress=None):
     full_cov[np.ix_(free, free)] = cov_int
     steps = _default_steps(model, vec)
     steps[free] = np.where(np.diag(cov_int) > 0, 1e-3 * np.sqrt(np.diag(cov_int)), steps[free])
-    G = numerical_jacobian(lambda v: physical_vector(model.layout, v), vec, free, steps)
+    G = numerical_jacobian(lambda v: physical_vector(model.layout, v), vec, free, steps,
+                           model.layout, physical_owner(model.layout))
     cov_phys = G @ cov_int @ G.T
     chi_s, n_s = model.star_chi2(vec)
     notes = list(start.notes)

@@ -370,6 +370,20 @@ class JointModel:
         ndat = np.bincount(owner, minlength=len(self.stars))
         return chi, ndat
 
+    def residual_owner(self):
+        """Star index that owns each residual row (-1: rows of shared parameters only).
+
+        A row owned by star k depends on the shared parameters and on star k's
+        elements only, which lets a Jacobian perturb one element of every star
+        at once (see :func:`deepwell.fit.numerical_jacobian`).
+        """
+        data = [self.pos.star, self.pos.star,
+                self.vel.star if self.vel else np.zeros(0, np.intp)]
+        penalty = np.arange(len(self.stars))
+        prior = np.array([-1 if p.star is None else self.stars.index(p.star)
+                          for p in self.priors], dtype=np.intp)
+        return np.concatenate(data + [penalty, prior]).astype(np.intp)
+
     # ---------------------------------------------------------------- helpers
     def _prior_slot(self, prior):
         if prior.star is None:

@@ -31,6 +31,14 @@ def physical_labels(layout):
     return out
 
 
+def physical_owner(layout):
+    """Star index owning each entry of the physical vector (-1 for shared ones)."""
+    own = [-1] * layout.n_shared
+    for k in range(len(layout.stars)):
+        own += [k] * len(STAR_REPORTED)
+    return np.array(own, dtype=np.intp)
+
+
 def physical_vector(layout, vec):
     """Reported quantities from internal vector(s); angles in degrees, unwrapped."""
     vec = np.asarray(vec, dtype=float)

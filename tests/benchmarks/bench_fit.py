@@ -43,11 +43,12 @@ def main(folder="scenarios/rich"):
     times["reading"] = time.perf_counter() - t
     model.residuals(np.ones(model.layout.size))  # compile / load the Kepler kernel
     t = time.perf_counter()
-    start = find_start(model, settings)
+    start = find_start(model.keplerian(), settings)
+    model, start_vec = model.start_from(start.vec, settings)
     times["start search"] = time.perf_counter() - t
     lo, hi, free = _bounds(model, settings)
     t = time.perf_counter()
-    vec, sol = minimise(model, start.vec, free, lo, hi)
+    vec, sol = minimise(model, start_vec, free, lo, hi)
     times["joint fit"] = time.perf_counter() - t
     t = time.perf_counter()
     covariance(model, vec, free)
@@ -73,7 +74,8 @@ def main(folder="scenarios/rich"):
     walkers = np.repeat(vec[None], 64, axis=0)
     t_batch = best_of(lambda: model.residuals(walkers), 5) / 64
 
-    print(f"rich demo: {len(model.stars)} stars, {n} data, {int(free.sum())} fitted parameters")
+    print(f"rich demo: {len(model.stars)} stars, {n} data, {int(free.sum())} fitted parameters;"
+          f" effects: {model.effects.describe()}")
     for k, v in times.items():
         print(f"  {k:22s} {v:8.2f} s")
     print(f"  start search + joint fit {times['start search'] + times['joint fit']:8.2f} s"
