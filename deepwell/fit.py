@@ -18,7 +18,8 @@ from .parameters import EXTRA, SHARED, STAR_INTERNAL
 from .results import FitResult, physical_labels, physical_owner, physical_vector
 from .start import find_start
 
-__all__ = ["build_model", "fit_joint", "numerical_jacobian", "FitWarning"]
+__all__ = ["build_model", "bounds", "fit_joint", "minimise", "covariance", "assemble_result",
+           "numerical_jacobian", "FitWarning"]
 
 
 class FitWarning(UserWarning):
@@ -42,7 +43,7 @@ def build_model(observations, settings):
                       effects=effects)
 
 
-def _bounds(model, settings):
+def bounds(model, settings):
     """Lower and upper bounds and the fitted mask of the internal vector."""
     names = model.layout.names()
     lo = np.full(len(names), -np.inf)
@@ -196,11 +197,25 @@ def fit_joint(observations, settings, progress=None):
     start = find_start(model.keplerian(), settings)  # effects: see deepwell.effects
     model, start_vec = model.start_from(start.vec, settings)
     start.notes.extend(model.effect_notes())
-    lo, hi, free = _bounds(model, settings)
+    lo, hi, free = bounds(model, settings)
     vec0 = np.clip(start_vec, lo, hi)
     say(f"joint fit of {int(free.sum())} parameters to {model.n_data} data")
     vec, sol = minimise(model, vec0, free, lo, hi)
     say("uncertainties from the Jacobian at the solution")
+    notes = list(start.notes)
+    if not sol.success:
+        notes.append(f"the optimiser stopped without convergence: {sol.message}")
+    return assemble_result(model, vec, free, settings, observations, notes,
+                           converged=bool(sol.success), nfev=int(sol.nfev))
+
+
+def assemble_result(model, vec, free, settings, observations, notes=(), converged=True,
+                    nfev=0):
+    """A :class:`FitResult` at internal vector ``vec``: covariance and statistics.
+
+    Used by :func:`fit_joint` and to rebuild a finished fit from its saved state.
+    """
+    notes = list(notes)
     cov_int, rank_def = covariance(model, vec, free)
     full_cov = np.zeros((model.layout.size, model.layout.size))
     full_cov[np.ix_(free, free)] = cov_int
@@ -210,13 +225,10 @@ def fit_joint(observations, settings, progress=None):
                            model.layout, physical_owner(model.layout))
     cov_phys = G @ cov_int @ G.T
     chi_s, n_s = model.star_chi2(vec)
-    notes = list(start.notes)
-    if rank_def:
+    if rank_def and not any("not constrained by the data" in n for n in notes):
         notes.append(f"{rank_def} parameter combination(s) are not constrained by the data "
                      "(singular covariance); their errors are not meaningful")
         warnings.warn(FitWarning(notes[-1]), stacklevel=2)
-    if not sol.success:
-        notes.append(f"the optimiser stopped without convergence: {sol.message}")
     return FitResult(
         model=model,
         internal=vec,
@@ -230,8 +242,8 @@ def fit_joint(observations, settings, progress=None):
         n_free=int(free.sum()),
         star_chi2=chi_s,
         star_ndata=n_s,
-        converged=bool(sol.success),
-        nfev=int(sol.nfev),
+        converged=converged,
+        nfev=nfev,
         notes=tuple(notes),
         settings=settings,
         observations=observations,

@@ -34,7 +34,7 @@ from scipy import optimize, stats
 from .compactness import GALAXY_AGE_YR, cluster_lifetimes, schwarzschild_radius_au
 from .constants import PC_AU
 from .errors import InputError
-from .fit import _bounds, covariance, minimise
+from .fit import bounds, covariance, minimise
 from .relativity import plummer_enclosed_mass
 from .results import phase_coverage
 
@@ -126,7 +126,7 @@ def _refit_star(result, k):
     ns = model.layout.n_shared
     vec0 = np.concatenate([result.internal[:ns],
                            result.internal[ns + 6 * k: ns + 6 * k + 6]])
-    lo, hi, _ = _bounds(model, result.settings)
+    lo, hi, _ = bounds(model, result.settings)
     free = np.zeros(vec0.size, bool)
     free[0] = True          # mass
     free[ns:] = True        # the star's six internal elements

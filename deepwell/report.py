@@ -155,7 +155,7 @@ def summary_dict(result, extra=None):
         "reference_epoch": float(result.model.reference_epoch),
         "software": {"name": "deepwell", "version": __version__},
         "inputs": {"folder": str(obs.folder), "checksums": dict(obs.checksums)},
-        "settings": result.settings.raw,
+        "settings": result.settings.to_dict(),
         "notes": report_notes(result),
         "dropped_stars": [{"star": s, "file": f, "reason": r} for s, f, r in obs.dropped_stars],
         "compactness": _compactness(result)[0],
@@ -338,6 +338,9 @@ def write_report(result, folder, figures=True, extra=None):
         files += [p for f in figs.values() for p in f["files"]]
     write_markdown(result, folder / "report.md", figs)
     files.append(folder / "report.md")
+    from .state import write_state  # the saved fit, for later commands (plan, sampling)
+
+    files.append(write_state(result, folder))
     return files
 
 

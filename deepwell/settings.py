@@ -98,6 +98,30 @@ class Settings:
             return SharedSetting(value=spec.default, fixed=spec.fixed_by_default)
         return SharedSetting()
 
+    def to_dict(self):
+        """The settings in force (including command-line overrides) as a TOML-like dict.
+
+        :func:`parse_settings` of the result gives back equal settings.
+        """
+        shared = {}
+        for name, st in self.shared.items():
+            d = {k: getattr(st, k) for k in ("value", "min", "max") if getattr(st, k) is not None}
+            if st.fixed:
+                d["fixed"] = True
+            if st.prior_mean is not None:
+                d["prior"] = {"mean": st.prior_mean, "sigma": st.prior_sigma}
+            shared[name] = d
+        stars = {}
+        for name, st in self.stars.items():
+            d = dict(st.start)
+            if st.fixed:
+                d["fixed"] = True
+            if st.priors:
+                d["prior"] = {el: {"mean": m, "sigma": sg} for el, (m, sg) in st.priors.items()}
+            stars[name] = d
+        return {"reference_epoch": self.reference_epoch, "min_epochs": self.min_epochs,
+                "shared": shared, "stars": stars, "effects": dict(self.effects)}
+
     def effect_switches(self):
         """The validated :class:`deepwell.effects.Effects` (defaults fill the gaps)."""
         return parse_effects(self.effects, file=self.source)

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from deepwell.fit import build_model, covariance, fit_joint, minimise, _bounds
+from deepwell.fit import build_model, covariance, fit_joint, minimise, bounds
 from deepwell.parameters import SHARED, internal_star_values
 from deepwell.settings import Settings, parse_settings
 from deepwell.tables import read_observations
@@ -36,7 +36,7 @@ def small_fit(small_scenario):
 def test_automatic_start_reaches_the_chi2_of_a_fit_started_at_the_truth(small_fit,
                                                                          small_scenario):
     model = small_fit.model
-    lo, hi, free = _bounds(model, Settings())
+    lo, hi, free = bounds(model, Settings())
     vec, _ = minimise(model, truth_vector(model, small_scenario), free, lo, hi)
     # same minimum within 0.05 in chi-square (a fraction of the 1-sigma change of 1)
     assert small_fit.chi2 <= model.chi2(vec) + 0.05
@@ -100,7 +100,7 @@ def test_covariance_matches_inverse_hessian_of_chi2(small_fit):
 
     # curvature along the mass axis with the other parameters re-minimised equals
     # 1 / var(mass) (profile likelihood, common practice)
-    lo, hi, fr = _bounds(model, Settings())
+    lo, hi, fr = bounds(model, Settings())
     fr = fr.copy()
     fr[i] = False
     prof = []

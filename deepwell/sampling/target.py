@@ -38,7 +38,7 @@ import warnings
 
 import numpy as np
 
-from ..fit import _bounds
+from ..fit import bounds
 from ..parameters import MAX_ECC
 
 __all__ = ["LINEAR_TERMS", "LogPosterior", "SamplingWarning"]
@@ -77,7 +77,7 @@ class LogPosterior:
         self.model = result.model
         lay = self.model.layout
         self.base = np.asarray(result.internal, float).copy()
-        lo, hi, free = _bounds(self.model, result.settings)
+        lo, hi, free = bounds(self.model, result.settings)
         self.lo, self.hi = lo, hi
         names = lay.names()
         explicit = marginalise is not True

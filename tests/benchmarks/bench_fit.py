@@ -17,7 +17,7 @@ import time
 t0 = time.perf_counter()
 import numpy as np  # noqa: E402
 
-from deepwell.fit import _bounds, build_model, covariance, minimise  # noqa: E402
+from deepwell.fit import bounds, build_model, covariance, minimise  # noqa: E402
 from deepwell.settings import Settings  # noqa: E402
 from deepwell.start import find_start  # noqa: E402
 from deepwell.tables import read_observations  # noqa: E402
@@ -46,7 +46,7 @@ def main(folder="scenarios/rich"):
     start = find_start(model.keplerian(), settings)
     model, start_vec = model.start_from(start.vec, settings)
     times["start search"] = time.perf_counter() - t
-    lo, hi, free = _bounds(model, settings)
+    lo, hi, free = bounds(model, settings)
     t = time.perf_counter()
     vec, sol = minimise(model, start_vec, free, lo, hi)
     times["joint fit"] = time.perf_counter() - t

@@ -22,7 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from deepwell.effects import effects_from_args
-from deepwell.fit import _bounds, build_model, fit_joint, minimise
+from deepwell.fit import bounds, build_model, fit_joint, minimise
 from deepwell.settings import parse_settings
 from deepwell.simulate import write_scenario
 from deepwell.start import find_start
@@ -44,7 +44,7 @@ def _minimise_time(obs, settings, repeat):
     model = build_model(obs, settings)
     start = find_start(model.keplerian(), settings)
     model, vec = model.start_from(start.vec, settings)
-    lo, hi, free = _bounds(model, settings)
+    lo, hi, free = bounds(model, settings)
     vec0 = np.clip(vec, lo, hi)
     return _best(lambda: minimise(model, vec0, free, lo, hi), repeat), model
 
