@@ -38,6 +38,37 @@ def _add_fit(sub):
     mod.add_argument("--settings", help="TOML settings file (fixed values, bounds, priors)")
     mod.add_argument("--strict", action="store_true",
                      help="stop on a star with too few epochs instead of setting it aside")
+    gr = p.add_argument_group("relativity and extended mass (default: Romer delay, exact "
+                              "redshift with f = 1, 1PN precession with f_sp = 1)")
+    gr.add_argument("--newtonian", action="store_true",
+                    help="switch every relativistic effect off (Keplerian orbits)")
+    gr.add_argument("--no-romer", action="store_true", help="no light-travel (Romer) delay")
+    gr.add_argument("--redshift", choices=("exact", "first-order", "off"),
+                    help="form of the relativistic redshift")
+    gr.add_argument("--no-precession", action="store_true",
+                    help="no Schwarzschild precession (Keplerian ellipses)")
+    gr.add_argument("--fit-f", action="store_true", help="fit the redshift factor f")
+    gr.add_argument("--fit-f-sp", action="store_true", help="fit the precession factor f_sp")
+    gr.add_argument("--extended-mass", nargs="+", type=float, metavar="B_AU",
+                    help="upper limits on a Plummer mass for these scale radii (au; one fit each)")
+    gr.add_argument("--reference-radius", type=float, metavar="AU",
+                    help="radius inside which the extended mass is quoted (default: "
+                         "apocentre of the tightest star)")
+    post = p.add_argument_group("posterior sampling")
+    post.add_argument("--sample", action="store_true",
+                      help="sample the joint posterior after the fit (slow: minutes to hours)")
+    post.add_argument("--walkers", type=int, help="walkers per ensemble")
+    post.add_argument("--steps", type=int,
+                      help="steps per ensemble (default: run until the convergence rule holds)")
+    post.add_argument("--max-time", type=float, metavar="SECONDS",
+                      help="wall-time budget per ensemble; a run cut short says NOT CONVERGED")
+    post.add_argument("--ensembles", type=int, default=2, help="independent ensembles (R-hat)")
+    post.add_argument("--seed", type=int, default=0, help="random seed of the sampler")
+    post.add_argument("--resume", action="store_true",
+                      help="continue the sampling saved in REPORT_DIR.chains/")
+    prof = p.add_argument_group("enclosed mass")
+    prof.add_argument("--external", metavar="CSV",
+                      help="enclosed-mass constraints at larger radii (radius_pc, mass, mass_err)")
     p.set_defaults(func=_run_fit)
 
 
@@ -71,12 +102,29 @@ def _run_fit(args):
 
     t0 = time.perf_counter()
     settings = load_settings(args.settings) if args.settings else Settings()
+    settings = _effect_settings(settings, args)
     obs = read_observations(args.scenario, min_epochs=settings.min_epochs, strict=args.strict)
     tmp = prepare_output(args.out, replace=args.replace)
     try:
         result = fit_joint(obs, settings, progress=log.info)
+        extra = {"command": "deepwell " + " ".join(args.argv)}
+        kwargs = {}
+        if args.extended_mass:
+            from .effect_summary import extended_mass_limits
+
+            log.info("extended-mass limits: one fit per scale radius (%d)",
+                     len(args.extended_mass))
+            kwargs["extended_limits"] = extended_mass_limits(obs, settings, args.extended_mass,
+                                                             fit=result)
+        if args.external:
+            from .profile import enclosed_mass_profile, read_external_constraints
+
+            kwargs["profile"] = enclosed_mass_profile(
+                result, external=read_external_constraints(args.external))
+        if args.sample:
+            kwargs["posterior"] = _sample(result, args)
         log.info("writing the report")
-        write_report(result, tmp, figures=not args.no_figures)
+        write_report(result, tmp, figures=not args.no_figures, extra=extra, **kwargs)
         install_output(tmp, args.out, replace=args.replace)
     except BaseException:
         discard_output(tmp)
@@ -87,6 +135,37 @@ def _run_fit(args):
              m, sm, d, sd, result.chi2, result.dof, time.perf_counter() - t0)
     log.info("report: %s", Path(args.out) / "report.md")
     return 0
+
+
+def _effect_settings(settings, args):
+    """Settings with the command line's effect switches applied."""
+    from .effects import effects_from_args
+
+    flags = dict(
+        romer=False if args.no_romer else None,
+        redshift=args.redshift,
+        precession=False if args.no_precession else None,
+        fit_f=True if args.fit_f else None,
+        fit_f_sp=True if args.fit_f_sp else None,
+        reference_radius=args.reference_radius,
+        newtonian=args.newtonian,
+    )
+    if not any(v not in (None, False) for v in flags.values()):
+        return settings
+    return effects_from_args(settings, **flags)
+
+
+def _sample(result, args):
+    """Posterior sampling with checkpoints beside the report folder."""
+    from .sampling import sample_posterior
+
+    chains = Path(str(Path(args.out)) + ".chains")
+    log.info("sampling the posterior (checkpoints in %s; resume with --resume)", chains)
+    post = sample_posterior(result, n_walkers=args.walkers, n_steps=args.steps, seed=args.seed,
+                            checkpoint=chains, resume=args.resume, progress=not args.quiet,
+                            max_time=args.max_time, n_ensembles=args.ensembles)
+    log.info("%s", post.statement)
+    return post
 
 
 def _run_simulate(args):
@@ -101,6 +180,7 @@ def main(argv=None):
     """Entry point of the ``deepwell`` command; returns the exit status."""
     parser = _parser()
     args = parser.parse_args(argv)
+    args.argv = list(sys.argv[1:] if argv is None else argv)
     logging.basicConfig(format="deepwell: %(message)s", stream=sys.stderr, force=True,
                         level=logging.WARNING if args.quiet else logging.INFO)
     logging.captureWarnings(True)
