@@ -15,8 +15,9 @@ import numpy as np
 
 from .model import JointModel, Prior
 from .parameters import EXTRA, SHARED, STAR_INTERNAL
-from .results import FitResult, physical_labels, physical_owner, physical_vector
-from .start import find_start
+from .results import (FitResult, phase_coverage, physical_labels, physical_owner,
+                      physical_vector)
+from .start import find_start, polish_stars
 
 __all__ = ["build_model", "bounds", "fit_joint", "minimise", "covariance", "assemble_result",
            "numerical_jacobian", "FitWarning"]
@@ -40,7 +41,7 @@ def build_model(observations, settings):
             for el, (mean, sigma) in st.priors.items():
                 priors.append(Prior(el, mean, sigma, star=star))
     return JointModel(observations, reference_epoch=settings.reference_epoch, priors=priors,
-                      effects=effects)
+                      effects=effects, datasets=settings.dataset_config())
 
 
 def bounds(model, settings):
@@ -122,11 +123,16 @@ def numerical_jacobian(func, vec, free, steps, layout=None, owner=None):
 
 
 def covariance(model, vec, free):
-    """Covariance of the free internal parameters from J^T J (errors as given)."""
+    """Covariance of the free internal parameters from J^T J (errors as given).
+
+    With fitted error scales or jitters the information of those terms is the
+    exact Fisher information (:meth:`JointModel.information_jacobian`).
+    """
     steps = _default_steps(model, vec)
     for _ in range(2):
         jac = numerical_jacobian(model.residuals, vec, free, steps, model.layout,
                                  model.residual_owner())
+        jac = model.information_jacobian(jac, vec, free)  # exact for fitted error terms
         u, s, vt = np.linalg.svd(jac, full_matrices=False)
         keep = s > s[0] * 1e-12
         cov = (vt[keep].T / s[keep] ** 2) @ vt[keep]
@@ -136,7 +142,7 @@ def covariance(model, vec, free):
     return cov, rank_deficient
 
 
-def minimise(model, vec0, free, lo, hi, max_nfev=None):
+def minimise(model, vec0, free, lo, hi, max_nfev=None, restarts=8):
     """Least-squares minimum of the model residuals over the ``free`` entries.
 
     lmfit drives scipy's trust-region reflective method with the bounds and a
@@ -170,10 +176,23 @@ def minimise(model, vec0, free, lo, hi, max_nfev=None):
     def jac(p):
         return numerical_jacobian(model.residuals, current(p), free, steps, model.layout, owner)
 
-    mini = lmfit.Minimizer(fun, params, scale_covar=False, calc_covar=False)
-    out = mini.minimize(method="least_squares", jac=jac, x_scale="jac", ftol=1e-10,
-                        xtol=1e-10, gtol=1e-10,
-                        max_nfev=max_nfev or 100 + 20 * int(np.sum(free)))
+    # A trust region that has shrunk in a long curved valley (partial arcs)
+    # crawls; restarting from the last point resets it, which is far faster
+    # than a larger evaluation budget.  Restart while chi-square still drops.
+    budget = max_nfev or 100 + 10 * int(np.sum(free))
+    total, best = 0, None
+    for _ in range(restarts + 1):
+        mini = lmfit.Minimizer(fun, params, scale_covar=False, calc_covar=False)
+        out = mini.minimize(method="least_squares", jac=jac, x_scale="jac", ftol=1e-10,
+                            xtol=1e-10, gtol=1e-10, max_nfev=budget)
+        total += out.nfev
+        cost = float(np.sum(out.residual**2))
+        improved = best is None or cost < best - 1e-3
+        best = cost if best is None else min(best, cost)
+        params = out.params
+        if out.success or not improved:
+            break
+    out.nfev = total
     return current(out.params), out
 
 
@@ -201,12 +220,46 @@ def fit_joint(observations, settings, progress=None):
     vec0 = np.clip(start_vec, lo, hi)
     say(f"joint fit of {int(free.sum())} parameters to {model.n_data} data")
     vec, sol = minimise(model, vec0, free, lo, hi)
-    say("uncertainties from the Jacobian at the solution")
     notes = list(start.notes)
+    if model.datasets is not None and model.datasets.mixture:  # see deepwell.robust
+        from .robust import restart_without_outliers
+        vec, sol, note = restart_without_outliers(model, vec, sol, settings, free, lo, hi)
+        notes += [note] if note else []
+    poor = _stars_to_polish(model, vec)
+    if poor:
+        say(f"searching again for {len(poor)} poorly constrained star(s) with the fitted frame")
+        vec2, changed = polish_stars(model, vec, poor)
+        if changed:
+            vec2, sol2 = minimise(model, vec2, free, lo, hi)
+            if model.chi2(vec2) < model.chi2(vec):
+                vec, sol = vec2, sol2
+                notes.append("a second search with the fitted mass, distance and frame "
+                             "changed the orbit of " + ", ".join(changed))
+    notes += _coverage_notes(model, vec)
+    say("uncertainties from the Jacobian at the solution")
     if not sol.success:
         notes.append(f"the optimiser stopped without convergence: {sol.message}")
     return assemble_result(model, vec, free, settings, observations, notes,
                            converged=bool(sol.success), nfev=int(sol.nfev))
+
+
+def _stars_to_polish(model, vec):
+    """Stars worth a second search: short arcs or a poor fit."""
+    chi, ndat = model.star_chi2(vec)
+    red = chi / np.maximum(ndat - len(STAR_INTERNAL), 1)
+    return [k for k in range(len(model.stars))
+            if phase_coverage(model, vec, k) < 0.5 or red[k] > 2.0]
+
+
+def _coverage_notes(model, vec):
+    """A plain warning when no orbit is covered well enough for linear errors."""
+    cover = [phase_coverage(model, vec, k) for k in range(len(model.stars))]
+    if max(cover) >= 0.5:
+        return []
+    return [f"no star covers half of its orbit (best phase coverage {max(cover):.2f}): the mass "
+            "and distance rest on partial arcs, where the posterior is far from Gaussian; the "
+            "least-squares errors are a linear approximation that can understate the real "
+            "uncertainty several-fold. Sample the posterior (--sample) before quoting them."]
 
 
 def assemble_result(model, vec, free, settings, observations, notes=(), converged=True,

@@ -205,13 +205,20 @@ def _velocity_scale(cand, el, d):
 POS_FLOOR, VEL_FLOOR = 0.5, 15.0
 
 
-def _star_data(model, k):
+def _star_data(model, k, shared=None):
+    """Data of star k for the grid; ``shared`` (x0, y0, vx0, vy0, vz0) removes the frame."""
     p = model.pos.star == k
     var = 0.5 * (model.pos.ra_err[p] ** 2 + model.pos.dec_err[p] ** 2) + POS_FLOOR**2
-    out = dict(t=model.pos.t[p], east=model.pos.ra[p], north=model.pos.dec[p], w=1.0 / var)
+    east, north, vz0 = model.pos.ra[p], model.pos.dec[p], 0.0
+    if shared is not None:
+        x0, y0, vx0, vy0, vz0 = shared
+        dt = model.pos.t[p] - model.reference_epoch
+        east = east - model.pos.frame[p] * (x0 + vx0 * dt)
+        north = north - model.pos.frame[p] * (y0 + vy0 * dt)
+    out = dict(t=model.pos.t[p], east=east, north=north, w=1.0 / var)
     if model.vel is not None:
         v = model.vel.star == k
-        out.update(tv=model.vel.t[v], vr=model.vel.vr[v],
+        out.update(tv=model.vel.t[v], vr=model.vel.vr[v] - vz0,
                    wv=1.0 / (model.vel.vr_err[v] ** 2 + VEL_FLOOR**2))
     else:
         out.update(tv=np.zeros(0), vr=np.zeros(0), wv=np.zeros(0))
@@ -335,7 +342,56 @@ def _floored(model, star):
                        stars=[star])
 
 
-def _refine_star(sub, soft, vec, layout, cands, settings):
+def polish_stars(model, vec, stars):
+    """Search again for the orbits of some stars with the shared parameters held.
+
+    A star on a short arc can be trapped in a wrong orbit at the start, when the
+    frame offset and drift were still unknown.  With the joint fit's mass,
+    distance and frame, its grid search and refinement are repeated; a new orbit
+    is kept when it lowers that star's chi-square by more than 1.
+
+    Parameters
+    ----------
+    model : deepwell.model.JointModel
+        The full model (any effects); the search itself is Keplerian.
+    vec : ndarray
+        Internal vector of the joint fit.
+    stars : sequence of int
+        Indices of the stars to search again.
+
+    Returns
+    -------
+    vec : ndarray
+        The vector with improved star blocks.
+    changed : list of str
+        Stars whose orbit changed.
+    """
+    kep = model.keplerian()
+    n_ex = len(model.layout.extra)
+    kvec = np.concatenate([vec[:len(SHARED)], vec[len(SHARED) + n_ex:]])
+    sh = dict(zip(SHARED, kvec[:len(SHARED)]))
+    frame = (sh["x0"], sh["y0"], sh["vx0"], sh["vy0"], sh["vz0"])
+    vec = np.array(vec, dtype=float)
+    chi_now = model.star_chi2(vec)[0]
+    changed = []
+    for k in stars:
+        star = model.stars[k]
+        d = _star_data(kep, k, shared=frame)
+        cands = grid_search(d, mass=sh["mass"], dist=sh["distance"])
+        cands = _distinct([_refine_sky(d, c) for c in cands] + cands)
+        block, _, _ = _refine_star(kep.for_stars([star]), _floored(kep, star).for_stars([star]),
+                                   kvec, kep.layout, cands, None, own_mass=False)
+        i0 = model.layout.n_shared + k * len(STAR_INTERNAL)
+        trial = vec.copy()
+        trial[i0:i0 + len(STAR_INTERNAL)] = block
+        chi_new = model.star_chi2(trial)[0][k]
+        if chi_new < chi_now[k] - 1.0:
+            vec, chi_now[k] = trial, chi_new
+            changed.append(star)
+    return vec, changed
+
+
+def _refine_star(sub, soft, vec, layout, cands, settings, own_mass=True):
     """Best six internal elements of one star, with the star's own mass free.
 
     ``sub`` is the joint model restricted to this star, so its internal vector
@@ -352,7 +408,7 @@ def _refine_star(sub, soft, vec, layout, cands, settings):
     """
     mass, dist = vec[layout.index("mass")], vec[layout.index("distance")]
     n_sh = layout.n_shared
-    user = settings.stars.get(sub.stars[0])
+    user = settings.stars.get(sub.stars[0]) if settings is not None else None
     starts = []
     if user is not None and set(user.start) == set(STAR_ELEMENTS):
         s = user.start
@@ -400,8 +456,12 @@ def _refine_star(sub, soft, vec, layout, cands, settings):
     for x0 in starts:
         try:
             s1 = run(soft, x0, False)
-            s2 = run(soft, np.concatenate([[1.0], s1.x]), True)
-            sol = run(sub, s2.x, True)
+            if own_mass:
+                s2 = run(soft, np.concatenate([[1.0], s1.x]), True)
+                sol = run(sub, s2.x, True)
+            else:
+                sol = run(sub, s1.x, False)
+                sol.x = np.concatenate([[1.0], sol.x])
         except ValueError:
             continue
         if not (np.all(np.isfinite(sol.x)) and sol.x[0] > 0):
