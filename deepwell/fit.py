@@ -217,6 +217,12 @@ def fit_joint(observations, settings, progress=None):
     model, start_vec = model.start_from(start.vec, settings)
     start.notes.extend(model.effect_notes())
     lo, hi, free = bounds(model, settings)
+    unused = _unconstrained_shared(model)
+    for name in unused:
+        free[model.layout.index(name)] = False
+    if unused:
+        start.notes.append("held at their starting values because no data constrain them: "
+                           + ", ".join(unused))
     vec0 = np.clip(start_vec, lo, hi)
     say(f"joint fit of {int(free.sum())} parameters to {model.n_data} data")
     vec, sol = minimise(model, vec0, free, lo, hi)
@@ -241,6 +247,16 @@ def fit_joint(observations, settings, progress=None):
         notes.append(f"the optimiser stopped without convergence: {sol.message}")
     return assemble_result(model, vec, free, settings, observations, notes,
                            converged=bool(sol.success), nfev=int(sol.nfev))
+
+
+def _unconstrained_shared(model):
+    """Frame terms without data: no frame-relative positions, or no velocities."""
+    names = []
+    if not np.any(model.pos.frame):
+        names += ["x0", "y0", "vx0", "vy0"]
+    if model.vel is None:
+        names.append("vz0")
+    return names
 
 
 def _stars_to_polish(model, vec):
