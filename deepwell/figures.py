@@ -143,11 +143,24 @@ def _square_limits(ax, x, y, pad=0.04):
     ax.set_aspect("equal", adjustable="box")
 
 
-def sky_figure(result):
+def _draw_tracks(ax, result, star, draws, colour):
+    """Thin orbits of posterior draws (posterior-predictive spread on the sky)."""
+    if draws is None:
+        return
+    from .figures_posterior import sky_draw_tracks
+
+    east, north = sky_draw_tracks(result, star, draws)
+    for j in range(east.shape[0]):
+        ax.plot(east[j], north[j], color=colour, lw=0.4, alpha=0.08, zorder=1)
+
+
+def sky_figure(result, draws=None):
     """All stars' orbits and mass-relative positions on the sky.
 
     When the orbits span very different sizes a second panel zooms on the
-    inner half of them.
+    inner half of them.  ``draws`` (internal vectors from the posterior, see
+    :func:`deepwell.figures_posterior.predictive_draws`) adds their orbits as
+    thin lines.
 
     Returns
     -------
@@ -172,6 +185,7 @@ def sky_figure(result):
             _sky_axes(ax)
             for k, star in enumerate(m.stars):
                 colour, marker = _style_of(k)
+                _draw_tracks(ax, result, star, draws, colour)
                 ax.plot(tracks[k].east, tracks[k].north, color=colour, lw=0.9, zorder=2)
                 sel = m.pos.star == k
                 ax.errorbar(ra[sel], dec[sel], xerr=m.pos.ra_err[sel], yerr=m.pos.dec_err[sel],
@@ -194,13 +208,14 @@ def _datasets(names):
     return list(dict.fromkeys(names))
 
 
-def _sky_panel(ax, result, k, ra, dec):
+def _sky_panel(ax, result, k, ra, dec, draws=None):
     m = result.model
     e = _elements(result, k)
     tr = _track(e, _orbit_times(e))
     _sky_axes(ax)
     ax.set_aspect("equal", adjustable="datalim")
     ax.invert_xaxis()  # east to the left, as on the sky
+    _draw_tracks(ax, result, m.stars[k], draws, PALETTE[1])
     ax.plot(tr.east, tr.north, color=MODEL_COLOUR, lw=0.9, label="model orbit", zorder=2)
     peri = _track(e, np.array([e["t_peri"]]))
     ax.plot(peri.east, peri.north, "o", color=MODEL_COLOUR, mfc="none", ms=7, mew=1.0,
@@ -225,8 +240,11 @@ def _residual_panel(ax, t, resid, err, datasets, label):
     ax.set_ylabel(label)
 
 
-def star_figure(result, star):
+def star_figure(result, star, draws=None):
     """Panels of one star: sky track, position residuals and radial velocities.
+
+    ``draws`` (posterior internal vectors) adds their orbits on the sky and a
+    68% posterior-predictive band on the radial velocities.
 
     Returns
     -------
@@ -244,7 +262,7 @@ def star_figure(result, star):
         grid = fig.add_gridspec(4, 2, width_ratios=(1.05, 1.0), left=0.08, right=0.985,
                                 bottom=0.08, top=0.9, wspace=0.2, hspace=0.12)
         ax_sky = fig.add_subplot(grid[:, 0])
-        _sky_panel(ax_sky, result, k, ra, dec)
+        _sky_panel(ax_sky, result, k, ra, dec, draws)
         ax_ra = fig.add_subplot(grid[0, 1])
         ax_dec = fig.add_subplot(grid[1, 1], sharex=ax_ra)
         t, ds = m.pos.t[sel], m.pos.dataset[sel]
@@ -256,7 +274,7 @@ def star_figure(result, star):
         ax_vr = fig.add_subplot(grid[2, 1], sharex=ax_ra)
         ax_vres = fig.add_subplot(grid[3, 1], sharex=ax_ra)
         if has_rv:
-            _velocity_panels(ax_vr, ax_vres, result, k, vsel, pred)
+            _velocity_panels(ax_vr, ax_vres, result, k, vsel, pred, draws)
         else:
             for ax in (ax_vr, ax_vres):
                 ax.set_axis_off()
@@ -275,15 +293,21 @@ def star_figure(result, star):
     return fig
 
 
-def _velocity_panels(ax_vr, ax_vres, result, k, vsel, pred):
-    m, vec = result.model, result.internal
+def _velocity_panels(ax_vr, ax_vres, result, k, vsel, pred, draws=None):
+    m = result.model
     v = m.vel
     e = _elements(result, k)
     t_all = np.concatenate([m.pos.t[m.pos.star == k], v.t[vsel]])
     pad = 0.03 * max(np.ptp(t_all), 1.0)
     tt = _time_grid(e, t_all.min() - pad, t_all.max() + pad)
-    vz0 = float(m.layout.shared(vec, "vz0"))
-    ax_vr.plot(tt, vz0 + _track(e, tt).v_z, color=MODEL_COLOUR, lw=0.9, label="model")
+    if draws is not None:
+        from .figures_posterior import velocity_band
+
+        lo, hi = velocity_band(result, m.stars[k], draws, tt)
+        ax_vr.fill_between(tt, lo, hi, color=PALETTE[1], alpha=0.45, lw=0, zorder=1,
+                           label="posterior 68% band")
+    model_vr = _full_velocity(result, k, tt)
+    ax_vr.plot(tt, model_vr, color=MODEL_COLOUR, lw=0.9, label="model")
     for j, ds in enumerate(_datasets(v.dataset[vsel])):
         colour, marker = _style_of(j + 3)  # velocity data sets: other colours than positions
         s = vsel & (v.dataset == ds)
@@ -302,7 +326,16 @@ def _velocity_panels(ax_vr, ax_vres, result, k, vsel, pred):
     ax_vres.set_ylabel(r"$v_r$ res. (km/s)")
 
 
-def write_figures(result, folder, formats=("pdf", "png")):
+def _full_velocity(result, k, tt):
+    """The fitted model's radial velocity of star k at epochs ``tt`` (all its effects)."""
+    from .figures_effects import model_at_epochs, star_vector
+
+    m = result.model
+    star = m.stars[k]
+    return model_at_epochs(m, star, t_vel=tt).predict(star_vector(m, result.internal, star)).vr
+
+
+def write_figures(result, folder, formats=("pdf", "png"), posterior=None, effect_sizes=None):
     """Write the sky figure and one figure per star into ``folder``.
 
     Parameters
@@ -312,6 +345,14 @@ def write_figures(result, folder, formats=("pdf", "png")):
         Created if missing.
     formats : tuple of str, optional
         File formats; PDF is vector, PNG uses STYLE["savefig.dpi"] (200).
+    posterior : deepwell.sampling.PosteriorResult, optional
+        Adds posterior-predictive orbits and bands, a corner plot of the
+        shared parameters (``corner``) and the mass-distance posterior
+        (``mass_distance``).
+    effect_sizes : dict, optional
+        From :func:`deepwell.effect_summary.star_effect_sizes`: adds the
+        redshift and precession figures of the stars where the effect exceeds
+        the errors (see :func:`deepwell.figures_effects.effect_figure_jobs`).
 
     Returns
     -------
@@ -321,16 +362,34 @@ def write_figures(result, folder, formats=("pdf", "png")):
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     out = {}
-    jobs = [("sky", lambda: sky_figure(result),
+    draws = None
+    band = ""
+    if posterior is not None and tuple(posterior.internal_names) == tuple(
+            result.model.layout.names()):
+        from .figures_posterior import predictive_draws
+
+        draws = predictive_draws(posterior)
+        band = (f" Thin lines: orbits of {len(draws)} posterior draws (posterior-predictive "
+                "spread).")
+    jobs = [("sky", lambda: sky_figure(result, draws),
              "All orbits on the sky, centred on the mass (black cross). Frame-relative positions "
              "have the fitted reference-point drift subtracted, so every data set is "
-             "shown relative to the mass; lines are the fitted orbits. East is to the left.")]
+             "shown relative to the mass; lines are the fitted orbits. East is to the left."
+             + band)]
     for star in result.model.stars:
-        jobs.append((figure_name(star), lambda s=star: star_figure(result, s),
+        jobs.append((figure_name(star), lambda s=star: star_figure(result, s, draws),
                      f"Star {star}: sky track relative to the mass (left; black cross: the "
                      "mass, open circle: pericentre), position residuals and, if measured, "
                      "radial velocities with their residuals (right). Error bars are the "
-                     "stated 1-sigma errors."))
+                     "stated 1-sigma errors. The model lines are the best (least-squares) fit."
+                     + (band + " Shaded: 68% band (16th to 84th percentile) of the radial "
+                        "velocity over the same draws." if draws is not None else "")))
+    if effect_sizes is not None:
+        from .figures_effects import effect_figure_jobs
+
+        jobs += effect_figure_jobs(result, effect_sizes)
+    if posterior is not None:
+        jobs += _posterior_jobs(result, posterior)
     with matplotlib.rc_context(STYLE):
         for stem, build, caption in jobs:
             fig = build()
@@ -342,6 +401,25 @@ def write_figures(result, folder, formats=("pdf", "png")):
             fig.clear()  # not registered with pyplot: freed once unreferenced
             out[stem] = {"caption": caption, "files": files}
     return out
+
+
+def _posterior_jobs(result, posterior):
+    from .figures_posterior import corner_figure, mass_distance_figure
+
+    shared = list(result.model.layout.shared_names)
+    lsq = ((result.value("mass"), result.sigma("mass")),
+           (result.value("distance"), result.sigma("distance")))
+    return [
+        ("corner", lambda: corner_figure(posterior, shared),
+         "Posterior of the shared parameters (parameters held fixed are left out). Diagonal: "
+         "one-dimensional histograms with the 16th, 50th and 84th percentiles (dashed); off "
+         "the diagonal: pairs, with contours enclosing 68.3% and 95.4% of the samples."),
+        ("mass_distance", lambda: mass_distance_figure(posterior, lsq),
+         "Joint posterior of the central mass and the distance: shaded regions enclose 68.3% "
+         "(dark) and 95.4% (light) of the posterior samples (smoothed histogram); dot: "
+         "posterior median; open square: least-squares value with its 1σ errors. The tilt "
+         "is the mass-distance degeneracy."),
+    ]
 
 
 def _metadata(fmt):

@@ -10,9 +10,20 @@ Layout of the folder::
 
     summary.json                machine-readable numbers (units: astropy strings)
     report.md                   readable report with the figures embedded
-    tables/shared.ecsv, .tex    shared parameters
-    tables/stars.ecsv, .tex     per-star elements and derived numbers
-    figures/*.pdf, *.png        see deepwell.figures
+    tables/shared.ecsv, .tex    shared parameters (least squares)
+    tables/stars.ecsv, .tex     per-star elements and derived numbers (least squares)
+    tables/effects.ecsv, .tex   sizes of the relativistic effects per star
+    tables/enclosed_mass.ecsv   per-star enclosed masses (deepwell.profile)
+    tables/extended_mass.*      Plummer-mass limits (when computed)
+    tables/posterior_*.ecsv,    posterior medians and percentiles (when sampled)
+      posterior.tex
+    figures/*.pdf, *.png        see deepwell.figures, figures_effects, figures_posterior
+
+With a posterior sample the "parameters" and "stars" entries of summary.json
+are posterior medians with 16th/84th percentiles (``lower``/``upper``) and
+``sigma`` = half their distance; the least-squares numbers stay under
+"least_squares".  The newer analyses' blocks and report sections live in
+:mod:`deepwell.report_sections`.
 """
 
 import json
@@ -22,7 +33,22 @@ from pathlib import Path
 from . import __version__
 from .compactness import compactness, compactness_paragraph
 from .outdir import staged_output
+from .report_sections import (
+    effects_block,
+    enclosed_block,
+    extended_block,
+    json_safe,
+    md_effects,
+    md_enclosed,
+    md_extended,
+    md_posterior,
+    not_converged_banner,
+    posterior_compactness,
+    posterior_parameters,
+    sampling_block,
+)
 from .report_tables import format_value_error, star_numbers, write_tables
+from .report_tables_extra import write_extra_tables
 from .results import UNITS
 
 __all__ = ["report_notes", "compactness_choice", "summary_dict", "write_summary",
@@ -122,7 +148,8 @@ def _q(result, label):
     return {"value": _num(value), "sigma": _num(sigma), "unit": unit}
 
 
-def summary_dict(result, extra=None):
+def summary_dict(result, extra=None, posterior=None, profile=None, extended_limits=None,
+                 effect_sizes=None):
     """The content of summary.json (see the module docstring of deepwell.report).
 
     Parameters
@@ -130,6 +157,16 @@ def summary_dict(result, extra=None):
     extra : dict, optional
         Additional top-level entries (e.g. the command line); may not reuse a
         contract key.
+    posterior : deepwell.sampling.PosteriorResult, optional
+        "parameters" and "stars" become posterior medians and percentiles;
+        adds "sampling" and "least_squares".
+    profile : deepwell.profile.EnclosedMassProfile, optional
+        Adds "enclosed_mass".
+    extended_limits : list of dict, optional
+        From :func:`deepwell.effect_summary.extended_mass_limits`; adds "extended_mass".
+    effect_sizes : dict, optional
+        From :func:`deepwell.effect_summary.star_effect_sizes`; adds "effects" and,
+        per star, "effect_sizes", "integrated_period" and "pericentre_observed".
     """
     shared = result.model.layout.shared_names
     params = {}
@@ -160,6 +197,32 @@ def summary_dict(result, extra=None):
         "dropped_stars": [{"star": s, "file": f, "reason": r} for s, f, r in obs.dropped_stars],
         "compactness": _compactness(result)[0],
     }
+    if effect_sizes is not None:
+        out["effects"] = effects_block(result, effect_sizes)
+        for star in result.stars:
+            d = effect_sizes[star]
+            stars[star]["integrated_period"] = {"value": _num(d["integrated_period"]),
+                                                "unit": "yr"}
+            stars[star]["pericentre_observed"] = {"value": _num(d["pericentre_observed"]),
+                                                  "unit": "yr"}
+            stars[star]["effect_sizes"] = json_safe(d)
+    if profile is not None:
+        out["enclosed_mass"] = enclosed_block(profile)
+    if extended_limits:
+        out["extended_mass"] = extended_block(extended_limits)
+    if posterior is not None:
+        p_params, p_stars = posterior_parameters(result, posterior, SUMMARY_STAR_ORDER)
+        out["least_squares"] = {"parameters": params,
+                                "stars": {s: {q: stars[s][q] for q in SUMMARY_STAR_ORDER}
+                                          for s in result.stars}}
+        for star in result.stars:
+            extra_keys = {k: v for k, v in stars[star].items() if k not in SUMMARY_STAR_ORDER}
+            p_stars[star].update(extra_keys)
+        out["parameters"], out["stars"] = p_params, p_stars
+        out["sampling"] = sampling_block(posterior)
+        choice = compactness_choice(result)
+        out["compactness_posterior"] = json_safe(
+            posterior_compactness(result, posterior, choice[0] if choice else None))
     for key, value in (extra or {}).items():
         if key in out:
             raise ValueError(f"extra entry {key!r} would replace a summary.json field")
@@ -167,9 +230,12 @@ def summary_dict(result, extra=None):
     return out
 
 
-def write_summary(result, path, extra=None):
-    """Write summary.json (strict JSON: no NaN) and return the dict written."""
-    data = summary_dict(result, extra)
+def write_summary(result, path, extra=None, **analyses):
+    """Write summary.json (strict JSON: no NaN) and return the dict written.
+
+    ``analyses``: the keyword arguments of :func:`summary_dict`.
+    """
+    data = summary_dict(result, extra, **analyses)
     Path(path).write_text(json.dumps(data, indent=2, allow_nan=False) + "\n", encoding="utf-8")
     return data
 
@@ -178,8 +244,8 @@ def write_summary(result, path, extra=None):
 ASSUMPTIONS = (
     "All stars orbit one Newtonian point mass on fixed Keplerian ellipses; the stars do "
     "not pull on each other and no extended mass (such as a star cluster) is included.",
-    "No relativistic terms yet: no light-travel (Rømer) delay, no gravitational or "
-    "transverse redshift, no pericentre precession. For the tightest orbits these shift "
+    "No relativistic effects were modelled: no light-travel (Rømer) delay, no gravitational "
+    "or transverse redshift, no pericentre precession. For the tightest orbits these shift "
     "radial velocities near pericentre by tens to a couple of hundred km/s.",
     "Frame-relative positions share one reference point that drifts linearly "
     "(x0 + vx0 (t - t_ref), y0 + vy0 (t - t_ref)); positions measured against the mass "
@@ -189,16 +255,31 @@ ASSUMPTIONS = (
 
 
 def _assumptions(result):
-    """ASSUMPTIONS, adapted when the model carries extra terms or settings ask for effects."""
+    """ASSUMPTIONS, adapted to the effects in the fitted model (and any the settings asked
+    for that the model lacks)."""
     out = list(ASSUMPTIONS)
-    extra = tuple(result.model.layout.extra)
-    asked = sorted(k for k, v in (result.settings.effects or {}).items() if v)
-    if extra:
-        out[1] = ("Extra terms in the fitted model: " + ", ".join(extra) + ". Everything "
-                  "else is Newtonian; check that these are the effects you meant to include.")
-    elif asked:
-        out.append("The settings ask for effects (" + ", ".join(asked) + ") but the fitted "
-                   "model has no extra terms: they were NOT applied.")
+    m = result.model
+    fx = m.effects
+    integ = [s for s, i in zip(m.stars, m.integrated, strict=True) if i]
+    if fx.any_on:
+        orbit = ("stars " + ", ".join(integ) + " move on integrated orbits (first "
+                 "post-Newtonian order" + (" plus the extended mass" if fx.extended_mass
+                                           else "") + "), the others on fixed Keplerian "
+                 "ellipses") if integ else "the stars move on fixed Keplerian ellipses"
+        ext = (f"an extended mass is included as a Plummer sphere of fixed scale radius "
+               f"{fx.extended_scale:g} au (other profiles would give other results)"
+               if fx.extended_mass else "no extended mass (such as a star cluster) is included")
+        out[0] = (f"All stars orbit one central point mass: {orbit}; the stars do not pull on "
+                  f"each other and {ext}.")
+        out[1] = (f"Relativistic effects modelled: {fx.describe()} (see \"Relativistic "
+                  "effects\"); any effect not named there is left out.")
+    try:
+        asked = result.settings.effect_switches()
+    except (AttributeError, ValueError):
+        asked = None
+    if asked is not None and asked.describe() != fx.describe():
+        out.append(f"The settings ask for effects ({asked.describe()}) but the fitted model "
+                   f"has {fx.describe()}: the difference was NOT applied.")
     return out
 
 
@@ -225,7 +306,8 @@ def _md_star_tables(result, numbers):
     return lines
 
 
-def markdown_report(result, notes, comp, figures):
+def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
+                    extended_limits=None, effect_sizes=None):
     """Text of report.md.
 
     Parameters
@@ -235,14 +317,19 @@ def markdown_report(result, notes, comp, figures):
     comp : tuple (dict, CompactnessReport) or (None, None)
     figures : dict
         From :func:`deepwell.figures.write_figures` (empty: no figures).
+    posterior, profile, extended_limits, effect_sizes : optional
+        As in :func:`write_report`; each adds its section.
     """
     numbers = {s: star_numbers(result, s) for s in result.stars}
     obs = result.observations
     rho, alpha = result.mass_distance_correlation, result.mass_distance_exponent
     n_vel = result.model.vel.n if result.model.vel is not None else 0
+    banner = not_converged_banner(posterior)
+    kind = "relativistic" if result.model.effects.any_on else "Keplerian"
     out = [
+        *([banner, ""] if banner else []),
         "# deepwell report", "",
-        f"Joint Keplerian fit of {len(result.stars)} stars' orbits around one central mass, "
+        f"Joint {kind} fit of {len(result.stars)} stars' orbits around one central mass, "
         f"from {result.model.pos.n} sky positions and {n_vel} radial velocities in "
         f"`{obs.folder}`.", "",
         "## Key numbers", "",
@@ -262,7 +349,9 @@ def markdown_report(result, notes, comp, figures):
         f"vz0 = {_md_pm(result, 'vz0')} km/s.", "",
         "Uncertainties are 1σ and use the stated data errors as given; they are **not** "
         "rescaled by the reduced χ². Values are rounded to two significant digits of their "
-        "error; full precision is in `summary.json` and `tables/`.", "",
+        "error; full precision is in `summary.json` and `tables/`."
+        + (" These key numbers are from the least-squares fit; the posterior medians are in "
+           "the Posterior section." if posterior is not None else ""), "",
         "## Stars", "", *_md_star_tables(result, numbers), "",
         "Angles: Ω is the position angle of the ascending node, ω the argument of pericentre "
         "(both wrapped to [0°, 360°)); coverage is the fraction of the orbit spanned by the "
@@ -284,7 +373,19 @@ def markdown_report(result, notes, comp, figures):
                    f"phase coverage ≥ {POOR_COVERAGE}, relative error < "
                    f"{GOOD_RPERI_ERROR:.0%}), and the best-fit mass; their errors are not "
                    "propagated into the numbers below. " + compactness_paragraph(rep))
-    out += ["", "## Figures", ""]
+    out.append("")
+    if effect_sizes is not None:
+        out += md_effects(result, effect_sizes, figures)
+    if extended_limits:
+        out += md_extended(extended_limits)
+    if profile is not None:
+        out += md_enclosed(profile, figures)
+    if posterior is not None:
+        choice = compactness_choice(result)
+        out += md_posterior(result, posterior,
+                            posterior_compactness(result, posterior,
+                                                  choice[0] if choice else None), figures)
+    out += ["## Figures", ""]
     if not figures:
         out.append("Figures were not drawn for this report.")
     for stem, fig in figures.items():
@@ -295,19 +396,34 @@ def markdown_report(result, notes, comp, figures):
     out += ["## Files", "",
             "- `summary.json`: all numbers with units, settings, input checksums, notes.",
             "- `tables/shared.ecsv`, `tables/stars.ecsv`: tables with units (astropy ECSV).",
-            "- `tables/shared.tex`, `tables/stars.tex`: LaTeX tables (booktabs).", "",
+            "- `tables/shared.tex`, `tables/stars.tex`: LaTeX tables (booktabs).",
+            "- Further tables of the sections above (effects, enclosed mass, extended mass, "
+            "posterior), where computed, in `tables/`.", "",
             f"Written by deepwell {__version__}.", ""]
     return "\n".join(out)
 
 
-def write_markdown(result, path, figures=None):
-    """Write report.md; ``figures`` is the dict returned by deepwell.figures.write_figures."""
-    text = markdown_report(result, report_notes(result), _compactness(result), figures or {})
+def write_markdown(result, path, figures=None, **analyses):
+    """Write report.md; ``figures`` is the dict returned by deepwell.figures.write_figures.
+
+    ``analyses``: posterior, profile, extended_limits, effect_sizes (see write_report).
+    """
+    text = markdown_report(result, report_notes(result), _compactness(result), figures or {},
+                           **analyses)
     Path(path).write_text(text, encoding="utf-8")
 
 
 # ---------------------------------------------------------------------- entry
-def write_report(result, folder, figures=True, extra=None):
+ENCLOSED_CAPTION = (
+    "Enclosed mass: per-star Keplerian masses (each star refitted with its own central "
+    "mass; horizontal bars run from pericentre to apocentre) against the joint point mass "
+    "(band: ±1σ). Per-star errors exclude the distance error; curves other than the point "
+    "mass are illustrative, not fitted. Lower panel: per-star mass over the joint mass "
+    "minus one.")
+
+
+def write_report(result, folder, figures=True, extra=None, posterior=None, profile=None,
+                 extended_limits=None, effect_sizes=None):
     """Write the full report of ``result`` into ``folder``.
 
     Parameters
@@ -319,6 +435,15 @@ def write_report(result, folder, figures=True, extra=None):
         Also draw the figures (the slowest part, a second or so per star).
     extra : dict, optional
         Extra top-level entries for summary.json.
+    posterior : deepwell.sampling.PosteriorResult, optional
+        Posterior sample of this fit: posterior numbers, diagnostics and figures.
+    profile : deepwell.profile.EnclosedMassProfile, optional
+        Enclosed-mass profile; computed here when None (one small refit per star).
+    extended_limits : list of dict, optional
+        From :func:`deepwell.effect_summary.extended_mass_limits` (slow, so never
+        computed here).
+    effect_sizes : dict, optional
+        From :func:`deepwell.effect_summary.star_effect_sizes`; computed here when None.
 
     Returns
     -------
@@ -327,16 +452,33 @@ def write_report(result, folder, figures=True, extra=None):
     """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
-    write_summary(result, folder / "summary.json", extra)
+    if effect_sizes is None:
+        from .effect_summary import star_effect_sizes
+
+        effect_sizes = star_effect_sizes(result)
+    if profile is None:
+        from .profile import enclosed_mass_profile
+
+        profile = enclosed_mass_profile(result)
+    analyses = {"posterior": posterior, "profile": profile,
+                "extended_limits": extended_limits, "effect_sizes": effect_sizes}
+    write_summary(result, folder / "summary.json", extra, **analyses)
     files = [folder / "summary.json"]
     files += write_tables(result, folder / "tables")
+    files += write_extra_tables(result, folder / "tables", sizes=effect_sizes,
+                                limits=extended_limits, posterior=posterior, profile=profile)
     figs = {}
     if figures:
         from .figures import write_figures  # matplotlib only when figures are wanted
+        from .profile_figure import plot_enclosed_mass
 
-        figs = write_figures(result, folder / "figures")
+        figs = write_figures(result, folder / "figures", posterior=posterior,
+                             effect_sizes=effect_sizes)
+        figs["enclosed_mass"] = {"caption": ENCLOSED_CAPTION,
+                                 "files": plot_enclosed_mass(profile,
+                                                             folder / "figures" / "enclosed_mass")}
         files += [p for f in figs.values() for p in f["files"]]
-    write_markdown(result, folder / "report.md", figs)
+    write_markdown(result, folder / "report.md", figs, **analyses)
     files.append(folder / "report.md")
     from .state import write_state  # the saved fit, for later commands (plan, sampling)
 
@@ -344,11 +486,13 @@ def write_report(result, folder, figures=True, extra=None):
     return files
 
 
-def save_report(result, final_dir, replace=False, figures=True, extra=None):
+def save_report(result, final_dir, replace=False, figures=True, extra=None, **analyses):
     """Write the report into a temporary folder and install it at ``final_dir``.
 
     The final folder is only touched once every file exists; see
     :mod:`deepwell.outdir` for the rules (``replace`` and foreign files).
+
+    ``analyses``: posterior, profile, extended_limits, effect_sizes (see write_report).
 
     Returns
     -------
@@ -356,6 +500,6 @@ def save_report(result, final_dir, replace=False, figures=True, extra=None):
         ``final_dir``.
     """
     with staged_output(final_dir, replace) as tmp:
-        write_report(result, tmp, figures=figures, extra=extra)
+        write_report(result, tmp, figures=figures, extra=extra, **analyses)
     return Path(final_dir)
 

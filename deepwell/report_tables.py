@@ -18,8 +18,8 @@ from .constants import AU_SI, GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR, SCHWARZSCHI
 from .parameters import SHARED
 from .results import UNITS
 
-__all__ = ["format_value_error", "star_numbers", "shared_table", "stars_table",
-           "latex_shared", "latex_stars", "write_tables", "STAR_COLUMNS"]
+__all__ = ["format_value_error", "format_asymmetric", "star_numbers", "shared_table",
+           "stars_table", "latex_shared", "latex_stars", "write_tables", "STAR_COLUMNS"]
 
 #: Per-star columns with an error, in table order: (name, unit, LaTeX symbol).
 STAR_COLUMNS = (
@@ -78,6 +78,34 @@ def format_value_error(value, error, style="latex", digits=2):
     scale = 10.0 ** mag
     exp = f"10^{{{mag}}}" if style == "latex" else f"10^{mag}"
     return f"({val_r / scale:.{d}f}{pm}{err_r / scale:.{d}f}){times}{exp}"
+
+
+def format_asymmetric(value, minus, plus, style="latex", digits=2):
+    """Value with separate lower and upper errors, rounded to the smaller error.
+
+    ``"latex"`` gives ``3.215^{+0.052}_{-0.048}`` (math mode, no dollars),
+    ``"text"`` gives ``3.215 +0.052/-0.048``; a power of ten is factored out
+    as in :func:`format_value_error`.
+    """
+    small = min(e for e in (minus, plus) if math.isfinite(e) and e > 0) \
+        if any(math.isfinite(e) and e > 0 for e in (minus, plus)) else float("nan")
+    if not math.isfinite(small) or not math.isfinite(value):
+        return format_value_error(value, float("nan"), style, digits)
+    e_err = math.floor(math.log10(small))
+    dec = digits - 1 - e_err
+    if round(small, dec) >= 10.0 ** (e_err + 1):
+        dec -= 1
+    v, lo, hi = round(value, dec), round(minus, dec), round(plus, dec)
+    mag = math.floor(math.log10(max(abs(v), hi, lo)))
+    scale, d = 1.0, max(dec, 0)
+    if not -3 <= mag < 5:
+        scale, d = 10.0 ** mag, max(dec + mag, 0)
+    body = (f"{v / scale:.{d}f}^{{+{hi / scale:.{d}f}}}_{{-{lo / scale:.{d}f}}}"
+            if style == "latex" else f"{v / scale:.{d}f} +{hi / scale:.{d}f}/-{lo / scale:.{d}f}")
+    if scale == 1.0:
+        return body
+    exp = f"10^{{{mag}}}" if style == "latex" else f"10^{mag}"
+    return (f"{body}" + r" \times " + exp) if style == "latex" else f"({body}) × {exp}"
 
 
 # -------------------------------------------------------------- derived numbers
@@ -268,3 +296,4 @@ def write_tables(result, folder, numbers=None):
     stars_table(result, numbers).write(paths[2], format="ascii.ecsv", overwrite=True)
     paths[3].write_text(latex_stars(result, numbers), encoding="utf-8")
     return paths
+

@@ -92,13 +92,17 @@ STAR_UNITS = {"period": "yr", "e": "", "a": "mas", "inc": "deg", "node": "deg",
 
 def test_summary_has_the_contract_keys_and_astropy_units(report_dir):
     data = json.loads((report_dir / "summary.json").read_text())
+    # effect sizes and the enclosed-mass profile are computed by write_report itself;
+    # posterior, sampling and extended-mass entries appear only when given
     assert set(data) == {"parameters", "stars", "fit", "mass_distance", "reference_epoch",
                          "software", "inputs", "settings", "notes", "dropped_stars",
-                         "compactness"}
+                         "compactness", "effects", "enclosed_mass"}
     assert {k: v["unit"] for k, v in data["parameters"].items()} == SHARED_UNITS
     assert set(data["stars"]) == set(STARS)
+    beside = {"integrated_period": "yr", "pericentre_observed": "yr"}
     for star in STARS:
-        assert {k: v["unit"] for k, v in data["stars"][star].items()} == STAR_UNITS
+        entries = {k: v for k, v in data["stars"][star].items() if k != "effect_sizes"}
+        assert {k: v["unit"] for k, v in entries.items()} == {**STAR_UNITS, **beside}
         assert set(data["fit"]["stars"][star]) == {"reduced_chi2", "n_positions",
                                                    "n_velocities", "coverage"}
     for unit in [*SHARED_UNITS.values(), *STAR_UNITS.values()]:
@@ -161,7 +165,9 @@ def test_compactness_uses_smallest_well_constrained_pericentre(result, report_di
 def test_report_states_errors_assumptions_and_warnings(result, report_dir):
     text = (report_dir / "report.md").read_text()
     assert "not** rescaled by the reduced χ²" in text
-    assert "Newtonian point mass" in text and "No relativistic terms" in text
+    assert "Newtonian point mass" in text and "No relativistic effects were modelled" in text
+    # Settings() asks for the relativistic effects, the hand-made model has none
+    assert "the difference was NOT applied" in text
     assert f"Star {NO_RV_STAR} has no radial velocities" in text and "180 deg" in text
     assert "a note from the fit" in text
     # br-11 (~320 yr period, 25 yr of data) covers far less than half its orbit
@@ -379,7 +385,7 @@ def test_manifest_pointing_outside_the_folder_is_refused(tmp_path):
 def test_full_report_with_figures(result, tmp_path):
     final = save_report(result, tmp_path / "report")
     figs = final / "figures"
-    stems = ["sky"] + [f"star_{s}" for s in STARS]
+    stems = ["sky"] + [f"star_{s}" for s in STARS] + ["enclosed_mass"]
     for stem in stems:
         assert (figs / f"{stem}.pdf").read_bytes()[:4] == b"%PDF"  # PDF magic number
         assert (figs / f"{stem}.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature

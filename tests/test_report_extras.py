@@ -1,0 +1,314 @@
+"""Tests of the newer report content: effects, enclosed mass, extended mass, posterior.
+
+Fits use the invented ``small_scenario`` of conftest.py; every check compares the
+report with an independent computation (numpy percentiles of the samples, the
+effect_summary dict, the profile's own masses, a direct chi-square) within a
+stated tolerance.
+"""
+
+import json
+import math
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+from astropy.table import Table
+
+from deepwell.effect_summary import star_effect_sizes
+from deepwell.effects import effects_from_args
+from deepwell.figures import _metadata
+from deepwell.figures_effects import effect_figure_jobs, precession_curves, redshift_curves
+from deepwell.figures_posterior import (
+    CONTOUR_LEVELS,
+    corner_figure,
+    mass_distance_data,
+    mass_distance_figure,
+)
+from deepwell.fit import fit_joint
+from deepwell.profile import enclosed_mass_profile
+from deepwell.report import compactness_choice, write_report
+from deepwell.report_sections import OSCULATING_STATEMENT
+from deepwell.report_tables import format_asymmetric
+from deepwell.sampling import SamplingWarning, sample_posterior
+from deepwell.settings import Settings
+from deepwell.tables import read_observations
+
+PDF_MAGIC = b"%PDF"  # PDF 1.7 (ISO 32000-1) sect. 7.5.2
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG (ISO/IEC 15948) sect. 5.2
+
+#: Hand-made limits in the format of effect_summary.extended_mass_limits (that
+#: function needs one fit per radius: too slow for the fast suite).
+LIMITS = [{"scale_radius_au": 500.0, "reference_radius_au": 1500.0, "ext_fraction": 0.001,
+           "ext_fraction_sigma": 0.002, "ext_mass_msun": 2.6e3, "ext_mass_sigma_msun": 5.2e3,
+           "upper_95_fraction": 0.0043, "upper_997_fraction": 0.0062, "upper_95_msun": 1.1e4,
+           "upper_997_msun": 1.6e4, "lower_997_fraction": -0.005, "detected": False,
+           "chi2": 240.0, "method": "hand-made for the test"}]
+
+
+@pytest.fixture(scope="module")
+def obs(small_scenario):
+    return read_observations(small_scenario)
+
+
+@pytest.fixture(scope="module")
+def rel_fit(obs):
+    """Fit with the default (relativistic) effects."""
+    return fit_joint(obs, Settings())
+
+
+@pytest.fixture(scope="module")
+def rel_sizes(rel_fit):
+    return star_effect_sizes(rel_fit)
+
+
+@pytest.fixture(scope="module")
+def rel_report(rel_fit, rel_sizes, tmp_path_factory):
+    folder = tmp_path_factory.mktemp("rel")
+    write_report(rel_fit, folder, figures=False, effect_sizes=rel_sizes)
+    return folder
+
+
+@pytest.fixture(scope="module")
+def newt_fit(obs):
+    return fit_joint(obs, effects_from_args(Settings(), newtonian=True))
+
+
+@pytest.fixture(scope="module")
+def posterior(newt_fit):
+    """A deliberately short run: must say NOT CONVERGED."""
+    with pytest.warns(SamplingWarning, match="NOT CONVERGED"):
+        return sample_posterior(newt_fit, n_steps=200, progress=False, processes=1)
+
+
+@pytest.fixture(scope="module")
+def post_report(newt_fit, posterior, tmp_path_factory):
+    folder = tmp_path_factory.mktemp("post")
+    write_report(newt_fit, folder, figures=False, posterior=posterior, extended_limits=LIMITS)
+    return folder
+
+
+def _summary(folder):
+    return json.loads((folder / "summary.json").read_text())
+
+
+def _samples(posterior, label):
+    return posterior.samples[..., posterior.labels.index(label)].ravel()
+
+
+# ------------------------------------------------------------------ posterior
+@pytest.mark.parametrize("label", ["mass", "distance", "vz0", "t-1:e", "t-2:period",
+                                   "t-3:r_peri"])
+def test_posterior_summary_is_median_and_16_84_percentiles(posterior, post_report, label):
+    data = _summary(post_report)
+    entry = (data["parameters"][label] if ":" not in label
+             else data["stars"][label.split(":")[0]][label.split(":")[1]])
+    p16, p50, p84 = np.percentile(_samples(posterior, label), [16, 50, 84])  # independent
+    assert (entry["value"], entry["lower"], entry["upper"]) == pytest.approx(
+        (p50, p16, p84), rel=1e-12)
+    assert entry["sigma"] == pytest.approx(0.5 * (p84 - p16), rel=1e-12)
+
+
+def test_least_squares_numbers_are_kept_beside_the_posterior(newt_fit, post_report):
+    ls = _summary(post_report)["least_squares"]
+    assert ls["parameters"]["mass"]["value"] == pytest.approx(newt_fit.value("mass"), rel=1e-15)
+    assert ls["parameters"]["mass"]["sigma"] == pytest.approx(newt_fit.sigma("mass"), rel=1e-15)
+    assert ls["stars"]["t-1"]["e"]["value"] == pytest.approx(newt_fit.value("t-1:e"), rel=1e-15)
+
+
+def test_sampling_block_records_the_diagnostics(posterior, post_report):
+    s = _summary(post_report)["sampling"]
+    assert s["statement"] == posterior.statement
+    assert s["converged"] is False
+    assert s["n_walkers"] == posterior.n_walkers
+    assert s["n_steps"] == [200, 200]
+    assert set(s["tau"]) == set(posterior.sampled_names) == set(s["rhat"]) == set(s["ess"])
+    assert s["implied_priors"] == list(posterior.implied_priors)
+
+
+def test_not_converged_warning_heads_the_report(posterior, post_report):
+    lines = (post_report / "report.md").read_text().splitlines()
+    assert lines[0].startswith("**WARNING") and "did NOT converge" in lines[0]
+    i = lines.index("## Posterior")
+    assert lines[i + 2] == posterior.statement  # the statement verbatim, first in the section
+    assert posterior.statement.startswith("NOT CONVERGED")
+
+
+def test_posterior_star_table_has_percentile_errors(posterior, post_report):
+    t = Table.read(post_report / "tables" / "posterior_stars.ecsv", format="ascii.ecsv")
+    row = list(t["star"]).index("t-2")
+    p16, p50, p84 = np.percentile(_samples(posterior, "t-2:a"), [16, 50, 84])
+    assert t["a"].unit == "mas"
+    assert t["a"][row] == pytest.approx(p50, rel=1e-12)
+    assert t["a_minus"][row] == pytest.approx(p50 - p16, rel=1e-9)
+    assert t["a_plus"][row] == pytest.approx(p84 - p50, rel=1e-9)
+    shared = Table.read(post_report / "tables" / "posterior_shared.ecsv", format="ascii.ecsv")
+    k = list(shared["parameter"]).index("mass")
+    assert shared["median"][k] == pytest.approx(np.median(_samples(posterior, "mass")), rel=1e-12)
+
+
+def test_compactness_over_the_posterior_uses_the_samples(newt_fit, posterior, post_report):
+    comp = _summary(post_report)["compactness_posterior"]
+    star = compactness_choice(newt_fit)[0]
+    assert comp["star"] == star
+    r = _samples(posterior, f"{star}:r_peri")
+    assert comp["r_peri"]["median"] == pytest.approx(np.median(r), rel=1e-12)
+    # Schwarzschild radius 2GM/c^2 = 2 * 1.476625 km per Msun (IAU 2015 nominal GM_sun)
+    rs_au = 2.0 * 1.476625e3 * _samples(posterior, "mass") / 1.495978707e11
+    assert comp["r_peri_in_rs"]["median"] == pytest.approx(np.median(r / rs_au), rel=1e-5)
+
+
+def test_corner_and_mass_distance_figures_are_valid_files(posterior, tmp_path):
+    for stem, fig in (("corner", corner_figure(posterior, ["mass", "distance", "vz0"])),
+                      ("mass_distance", mass_distance_figure(posterior))):
+        for fmt, magic in (("pdf", PDF_MAGIC), ("png", PNG_MAGIC)):
+            path = tmp_path / f"{stem}.{fmt}"
+            fig.savefig(path, format=fmt, metadata=_metadata(fmt))
+            assert path.read_bytes()[:len(magic)] == magic
+
+
+def test_mass_distance_contours_match_a_gaussian_posterior():
+    """For a correlated Gaussian the 68.3% / 95.4% highest-density regions are the
+    ellipses of squared Mahalanobis distance -2 ln(1 - q) (chi-square with 2 dof):
+    the gridded contours must hold those fractions of the samples."""
+    rng = np.random.Generator(np.random.PCG64(7))
+    cov = np.array([[1.0, 0.9], [0.9, 1.0]])
+    z = rng.multivariate_normal([0.0, 0.0], cov, size=40000)
+    mass, dist = 4e6 + 4e4 * z[:, 0], 8000.0 + 100.0 * z[:, 1]
+    post = SimpleNamespace(labels=("mass", "distance"), flat_samples=np.stack([mass, dist], 1))
+    d = mass_distance_data(post)
+
+    def cell(x, centres):  # index of the cell holding x (evenly spaced centres)
+        w = centres[1] - centres[0]
+        return np.clip(np.floor((x - centres[0] + 0.5 * w) / w).astype(int), 0, len(centres) - 1)
+
+    dens = d["density"][cell(dist, d["distance"]), cell(mass, d["mass"])]
+    maha = np.einsum("ij,jk,ik->i", z, np.linalg.inv(cov), z)
+    for level, threshold in zip(CONTOUR_LEVELS, d["thresholds"], strict=True):
+        inside = dens >= threshold
+        assert inside.mean() == pytest.approx(level, abs=0.01)  # binning: 1 point
+        ellipse = maha < -2.0 * np.log(1.0 - level)
+        # the grid region and the exact ellipse agree on >= 95% of the samples (edge cells)
+        assert np.mean(inside == ellipse) > 0.95
+
+
+# ------------------------------------------------------------------ extended mass
+def test_extended_mass_limits_in_summary_table_and_text(post_report):
+    entry = _summary(post_report)["extended_mass"][0]
+    assert entry["upper_95"] == {"value": LIMITS[0]["upper_95_msun"], "unit": "solMass"}
+    assert entry["upper_997_fraction"]["value"] == LIMITS[0]["upper_997_fraction"]
+    assert entry["reference_radius"]["value"] == LIMITS[0]["reference_radius_au"]
+    assert entry["detected"] is False
+    t = Table.read(post_report / "tables" / "extended_mass.ecsv", format="ascii.ecsv")
+    assert t["upper_997"][0] == LIMITS[0]["upper_997_msun"]
+    assert str(t["upper_997"].unit) == "solMass"
+    text = (post_report / "report.md").read_text()
+    assert "assume a Plummer density profile" in text
+
+
+# ------------------------------------------------------------------ effects
+def test_effect_table_equals_the_effect_summary(rel_fit, rel_sizes, rel_report):
+    t = Table.read(rel_report / "tables" / "effects.ecsv", format="ascii.ecsv")
+    for row, star in enumerate(t["star"]):
+        d = rel_sizes[star]
+        assert t["redshift_excess"][row] == pytest.approx(d["redshift_excess_kms"], rel=1e-12)
+        assert t["precession"][row] == pytest.approx(d["precession_arcmin"], rel=1e-12)
+        assert t["romer_range"][row] == pytest.approx(d["romer_range_days"], rel=1e-12)
+        assert t["integrated_period"][row] == pytest.approx(d["integrated_period"], rel=1e-12)
+        assert bool(t["detectable_redshift"][row]) == d["detectable_redshift"]
+        assert t["t_peri_fit"][row] == pytest.approx(rel_fit.value(f"{star}:t_peri"), rel=1e-12)
+    assert str(t["redshift_excess"].unit) == "km / s"
+    assert str(t["precession"].unit) == "arcmin"
+
+
+def test_summary_carries_effects_block_and_sizes(rel_fit, rel_sizes, rel_report):
+    data = _summary(rel_report)
+    assert data["parameters"]["f"]["unit"] == "" and data["parameters"]["f_sp"]["unit"] == ""
+    fx = data["effects"]
+    assert fx["modelled"] == rel_fit.model.effects.describe()
+    assert fx["osculating_elements"] == OSCULATING_STATEMENT
+    assert fx["integrated_stars"] == [s for s, i in zip(rel_fit.stars, rel_fit.model.integrated,
+                                                        strict=True) if i]
+    for star, d in rel_sizes.items():
+        entry = data["stars"][star]
+        assert entry["effect_sizes"]["redshift_excess_kms"] == pytest.approx(
+            d["redshift_excess_kms"], rel=1e-15)
+        assert entry["pericentre_observed"]["value"] == pytest.approx(
+            d["pericentre_observed"], rel=1e-15)
+    text = (rel_report / "report.md").read_text()
+    assert "## Relativistic effects" in text and rel_fit.model.effects.describe() in text
+    assert "No relativistic effects were modelled" not in text
+    assert "OSCULATING" in text  # the model's own note on integrated stars
+
+
+def test_redshift_curve_at_pericentre_equals_the_effect_size(obs):
+    """Redshift only (no Romer delay, no precession): at pericentre the f = 1 model minus
+    the Newtonian orbit is the redshift excess of effect_summary (computed there from the
+    analytic pericentre speed, physics.md sect. 5); f = 0 is the Newtonian orbit."""
+    fit = fit_joint(obs, effects_from_args(Settings(), romer=False, precession=False))
+    sizes = star_effect_sizes(fit)
+    for star in ("t-1", "t-3"):
+        d = redshift_curves(fit, star, sizes[star])
+        at_peri = np.interp(d["t_peri"], d["t"], d["f1"])
+        assert at_peri == pytest.approx(sizes[star]["redshift_excess_kms"], rel=0.10)
+        assert np.max(np.abs(d["f0"])) < 1e-6  # km/s: f = 0 is exactly Newtonian
+
+
+def test_redshift_difference_of_f1_and_f0_with_all_effects(rel_fit, rel_sizes):
+    d = redshift_curves(rel_fit, "t-1", rel_sizes["t-1"])
+    diff = np.interp(d["t_peri"], d["t"], d["f1"] - d["f0"])
+    assert diff == pytest.approx(rel_sizes["t-1"]["redshift_excess_kms"], rel=0.10)
+
+
+def test_precession_off_leaves_only_the_romer_shift(rel_fit, rel_sizes):
+    """With f_SP = 0 the integrated orbit is Keplerian: what remains against the
+    Newtonian orbit is the Romer delay, whose largest sky shift over an orbit
+    effect_summary computes separately (10%: the data span samples the orbit)."""
+    d = precession_curves(rel_fit, "t-1")
+    shift0 = np.hypot(*d["sp0"])
+    assert shift0.max() == pytest.approx(rel_sizes["t-1"]["romer_sky_mas"], rel=0.10)
+    assert np.hypot(*(d["sp1"] - d["sp0"])).max() > 0.1 * rel_sizes["t-1"]["precession_mas"]
+
+
+def test_effect_figures_only_for_stars_above_their_errors(rel_fit, rel_sizes, tmp_path):
+    jobs = effect_figure_jobs(rel_fit, rel_sizes)
+    expected = {f"redshift_{s}" for s, d in rel_sizes.items() if d["detectable_redshift"]}
+    expected |= {f"precession_{s}" for s, d in rel_sizes.items() if d["detectable_precession"]}
+    assert {stem for stem, _, _ in jobs} == expected
+    stem, build, caption = jobs[0]
+    fig = build()
+    fig.savefig(tmp_path / f"{stem}.png", format="png", metadata=_metadata("png"))
+    assert (tmp_path / f"{stem}.png").read_bytes()[:8] == PNG_MAGIC
+    assert "Newtonian" in caption
+
+
+# ------------------------------------------------------------------ enclosed mass
+def test_enclosed_mass_table_and_summary_equal_the_profile(rel_fit, rel_report):
+    profile = enclosed_mass_profile(rel_fit)  # deterministic refits: same numbers again
+    t = Table.read(rel_report / "tables" / "enclosed_mass.ecsv", format="ascii.ecsv")
+    data = _summary(rel_report)["enclosed_mass"]
+    for s in profile.stars:
+        row = list(t["star"]).index(s.star)
+        assert t["mass"][row] == pytest.approx(s.mass, rel=1e-9)
+        assert data["stars"][s.star]["mass"]["value"] == pytest.approx(s.mass, rel=1e-9)
+        assert data["stars"][s.star]["r_peri"]["value"] == pytest.approx(s.r_peri_au, rel=1e-9)
+    # consistency chi-square recomputed directly: sum ((M_i - M) / sigma_i)^2, dof N - 1
+    m = np.array([s.mass for s in profile.stars])
+    sig = np.array([s.mass_sigma for s in profile.stars])
+    chi2 = float(np.sum(((m - rel_fit.value("mass")) / sig) ** 2))
+    assert data["consistency"]["chi2"] == pytest.approx(chi2, rel=1e-9)
+    assert data["consistency"]["dof"] == len(m) - 1
+    text = (rel_report / "report.md").read_text()
+    assert "## Enclosed mass" in text
+    assert "consistent with one point mass" in text
+
+
+# ------------------------------------------------------------------ formatting
+@pytest.mark.parametrize("value, minus, plus, style, expected", [
+    (3.2154, 0.048, 0.052, "latex", "3.215^{+0.052}_{-0.048}"),
+    (2.6e6, 2.1e4, 2.0e4, "text", "(2.600 +0.020/-0.021) × 10^6"),
+    (13.49584, 0.0050, 0.0061, "text", "13.4958 +0.0061/-0.0050"),
+])
+def test_asymmetric_errors_round_to_the_smaller_error(value, minus, plus, style, expected):
+    # hand-worked: two significant digits of the smaller error (common practice)
+    assert format_asymmetric(value, minus, plus, style) == expected
+    assert math.isfinite(value)
