@@ -27,6 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .constants import KMS_PER_AU_PER_YR
+from .datasets import DatasetConfig, DatasetTerms, mark_excluded
 from .effects import (
     Effects,
     choose_integrated,
@@ -37,6 +38,7 @@ from .orbit import OrbitTrack, keplerian_track
 from .parameters import EXTRA, SHARED, STAR_ELEMENTS, Layout
 from .pn import pn_track
 from .relativity import plummer_enclosed_mass, redshift_velocity
+from .robust import mixture_rows
 
 __all__ = ["JointModel", "Prediction", "Prior"]
 
@@ -92,14 +94,28 @@ class JointModel:
     reference_radius : float, optional
         Radius (au) inside which ``ext_fraction`` is quoted (default: the
         effects' value, else set by :meth:`start_from`).
+    datasets : deepwell.datasets.DatasetConfig, optional
+        Data-set terms, error models, likelihood and excluded rows (default:
+        none, every row alike).
     """
 
     def __init__(self, observations, reference_epoch=2000.0, stars=None, priors=(),
-                 effects=None, integrated=None, reference_radius=None):
+                 effects=None, integrated=None, reference_radius=None, datasets=None):
         pos = observations.positions
         vel = observations.velocities
+        self.dataset_config = datasets
+        if datasets is not None and datasets.exclude_rows:
+            pos, found_p = mark_excluded(pos, datasets.exclude_rows, "positions")
+            vel, found_v = mark_excluded(vel, datasets.exclude_rows, "velocities")
+            missing = set(datasets.exclude_rows) - found_p - found_v
+            if missing:
+                from .errors import SettingsError
+                f, n = sorted(missing)[0]
+                raise SettingsError(f"no data row at {f} line {n} to exclude",
+                                    column="fit.exclude_rows")
         pos = pos[~pos["exclude"].to_numpy(bool)]
         vel = vel[~vel["exclude"].to_numpy(bool)] if len(vel) else vel
+        stars_given = stars
         if stars is None:
             stars = list(dict.fromkeys(pos["star"]))
         stars = tuple(stars)
@@ -107,7 +123,6 @@ class JointModel:
         vel = vel[vel["star"].isin(stars)] if len(vel) else vel
         self.stars = stars
         self.effects = Effects.newtonian() if effects is None else effects
-        self.layout = Layout(stars=stars, extra=self.effects.extra_names)
         if integrated is None:
             integrated = np.full(len(stars), self.effects.integrates)
         self.integrated = np.asarray(integrated, bool)
@@ -124,6 +139,10 @@ class JointModel:
         if self.vel is not None:
             self.vel.dataset = vel["dataset"].to_numpy(str)
             self.vel.line = vel["line"].to_numpy(int) if "line" in vel else np.zeros(len(vel), int)
+        self.datasets = (DatasetTerms(datasets, self.pos, self.vel, strict=stars_given is None)
+                         if datasets is not None and datasets.active else None)
+        self.layout = Layout(stars=stars, extra=self.effects.extra_names + (
+            self.datasets.names if self.datasets is not None else ()))
         self._t_all = np.concatenate([self.pos.t, self.vel.t if self.vel else []])
         self._star_all = np.concatenate(
             [self.pos.star, self.vel.star if self.vel else np.zeros(0, np.intp)]
@@ -145,12 +164,15 @@ class JointModel:
         integ = [self.integrated[self.stars.index(s)] for s in stars]
         return JointModel(self.observations, self.reference_epoch, stars=stars, priors=keep,
                           effects=self.effects, integrated=integ,
-                          reference_radius=self.reference_radius)
+                          reference_radius=self.reference_radius, datasets=self.dataset_config)
 
     def keplerian(self):
         """The same data and priors with every effect off (for the start search)."""
         keep = [p for p in self.priors if p.star is not None or p.name in SHARED]
-        return JointModel(self.observations, self.reference_epoch, stars=self.stars, priors=keep)
+        cfg = self.dataset_config
+        plain = DatasetConfig(exclude_rows=cfg.exclude_rows) if cfg is not None else None
+        return JointModel(self.observations, self.reference_epoch, stars=self.stars, priors=keep,
+                          datasets=plain)
 
     def start_from(self, keplerian_vec, settings=None):
         """Finish the effect set-up from a Keplerian starting vector.
@@ -172,8 +194,11 @@ class JointModel:
         extras = []
         for name in self.layout.extra:
             s = settings.shared_setting(name) if settings is not None else None
-            value = s.value if s is not None and s.value is not None else EXTRA[name].default
-            extras.append(value)
+            if self.datasets is not None and name in self.datasets.names:
+                default = self.datasets.start_value(name, self)
+            else:
+                default = EXTRA[name].default
+            extras.append(s.value if s is not None and s.value is not None else default)
         vec = np.concatenate([kep[..., :n0], extras, kep[..., n0:]])
         el = self.layout.elements(vec)
         mass = float(self.layout.shared(vec, "mass"))
@@ -187,7 +212,7 @@ class JointModel:
             ref = reference_radius_from(el, dist)
         model = JointModel(self.observations, self.reference_epoch, stars=self.stars,
                            priors=self.priors, effects=self.effects, integrated=integ,
-                           reference_radius=ref)
+                           reference_radius=ref, datasets=self.dataset_config)
         return model, vec
 
     def effect_notes(self):
@@ -213,6 +238,8 @@ class JointModel:
                 f"{fx.extended_scale:g} au centred on the mass; ext_fraction is its mass "
                 f"inside r_ref = {self.reference_radius:g} au over the point mass; other "
                 "density profiles would give other limits")
+        if self.datasets is not None:
+            notes += self.datasets.notes()
         return notes
 
     # ------------------------------------------------------------------ sizes
@@ -317,11 +344,18 @@ class JointModel:
             vr = redshift_velocity(v_z, v_sky + v_z**2, r_au, sh(vec, "mass")[..., None],
                                    f=sh(vec, "f")[..., None],
                                    exact=self.effects.redshift == "exact", vz0=vz0)
+        if self.datasets is not None:
+            ra, dec, vr = self.datasets.shift(self, vec, ra, dec, vr)
         return Prediction(ra=ra, dec=dec, vr=vr)
 
     def data_residuals(self, vec):
-        """Whitened residuals (data - model)/error of all data, shape (..., n_data)."""
+        """Whitened residuals (data - model)/error of all data, shape (..., n_data).
+
+        With a data-set error model the errors are the fitted ones.
+        """
         p = self.predict(vec)
+        if self.datasets is not None:
+            return self.datasets.whitened(self, vec, p)
         d_ra = self.pos.ra - p.ra
         d_dec = self.pos.dec - p.dec
         parts = [d_ra * self._w_ra, d_dec * self._w_dec + d_ra * self._w_mix]
@@ -353,8 +387,35 @@ class JointModel:
         return np.concatenate(rows, axis=-1)
 
     def residuals(self, vec):
-        """All residual rows: data, then priors and penalties."""
-        return np.concatenate([self.data_residuals(vec), self.prior_residuals(vec)], axis=-1)
+        """All residual rows: data, then priors and penalties.
+
+        Their sum of squares is -2 ln(likelihood x priors) up to a constant,
+        also with fitted error terms and the mixture likelihood (extra rows
+        after the data; see :mod:`deepwell.datasets`, :mod:`deepwell.robust`).
+        """
+        ds = self.datasets
+        if ds is None:
+            return np.concatenate([self.data_residuals(vec), self.prior_residuals(vec)],
+                                  axis=-1)
+        z = self.data_residuals(vec)
+        parts = [z]
+        if ds.mixture:
+            q = self.layout.shared(vec, "outlier_frac")[..., None]
+            parts = list(mixture_rows(self.pos.n, z, q, ds.config.outlier_width))
+        parts += [ds.norm_rows(self, vec), self.prior_residuals(vec)]
+        shape = z.shape[:-1]
+        return np.concatenate([np.broadcast_to(p, shape + p.shape[-1:]) for p in parts],
+                              axis=-1)
+
+    def information_jacobian(self, jac, vec, free):
+        """Jacobian rows whose J^T J is the information used for the covariance.
+
+        ``jac`` is the Jacobian of :meth:`residuals`; unchanged without fitted
+        error terms (see :meth:`deepwell.datasets.DatasetTerms.information_jacobian`).
+        """
+        if self.datasets is None or not self.datasets.n_norm_rows():
+            return jac
+        return self.datasets.information_jacobian(self, jac, vec, free)
 
     def chi2(self, vec):
         """Chi-square of the data alone (priors excluded)."""
@@ -379,6 +440,9 @@ class JointModel:
         """
         data = [self.pos.star, self.pos.star,
                 self.vel.star if self.vel else np.zeros(0, np.intp)]
+        if self.datasets is not None:  # the mixture row and the normalisation rows
+            n_extra = int(self.datasets.mixture) + self.datasets.n_norm_rows()
+            data.append(np.full(n_extra, -1, np.intp))
         penalty = np.arange(len(self.stars))
         prior = np.array([-1 if p.star is None else self.stars.index(p.star)
                           for p in self.priors], dtype=np.intp)

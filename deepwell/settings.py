@@ -37,7 +37,24 @@ Example::
                                   # mass inside reference_radius / point mass) is
                                   # fitted whenever the extended mass is on
 
-See :mod:`deepwell.effects` for the model behind each switch.  For the effect
+    [datasets]                    # per-data-set terms (deepwell.datasets); all off
+    reference = "imager-A"        # set(s) without offset / zero-point (a name or list)
+    offsets = false               # frame offset dx, dy for every other imaging set
+    drifts = false                # and an offset drift dvx, dvy (mas/yr)
+    zero_points = false           # velocity zero-point dvz for every other spectrograph
+    error_model = "none"          # "scale" (s * sigma), "jitter" (sqrt(sigma^2 + j^2))
+    [datasets.sets.imager-B]      # per-set overrides of the four choices above
+    offset = true
+    error_model = "jitter"
+
+    [fit]
+    likelihood = "gaussian"       # or "mixture": outlier-mixture likelihood (robust)
+    outlier_width = 20.0          # width of the outlier Gaussian, in units of the error
+    exclude_rows = [{file = "positions.csv", line = 17}]   # left out, not deleted
+
+See :mod:`deepwell.effects` for the model behind each switch, and
+:mod:`deepwell.datasets` / :mod:`deepwell.robust` for the data-set terms,
+the likelihoods and the names of their parameters.  For the effect
 strengths (``f``, ``f_sp``, ``ext_fraction``) the keys of a ``[shared.NAME]``
 table that are left out keep the parameter's defaults (``f`` and ``f_sp``:
 value 1, fixed), so ``value = 0.9`` alone holds f at 0.9.
@@ -47,13 +64,14 @@ import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from .datasets import parse_datasets
 from .effects import Effects, parse_effects
 from .errors import SettingsError
 from .parameters import EXTRA, SHARED, STAR_ELEMENTS
 
 __all__ = ["SharedSetting", "StarSetting", "Settings", "load_settings", "Effects"]
 
-_TOP_KEYS = {"reference_epoch", "min_epochs", "shared", "stars", "effects"}
+_TOP_KEYS = {"reference_epoch", "min_epochs", "shared", "stars", "effects", "datasets", "fit"}
 _SHARED_KEYS = {"value", "fixed", "min", "max", "prior"}
 
 
@@ -87,6 +105,8 @@ class Settings:
     shared: dict = field(default_factory=dict)
     stars: dict = field(default_factory=dict)
     effects: dict = field(default_factory=dict)  # [effects] as written, validated
+    datasets: dict = field(default_factory=dict)  # [datasets] as written, validated
+    fit: dict = field(default_factory=dict)  # [fit] as written, validated
     source: str | None = None
     raw: dict = field(default_factory=dict)
 
@@ -120,11 +140,16 @@ class Settings:
                 d["prior"] = {el: {"mean": m, "sigma": sg} for el, (m, sg) in st.priors.items()}
             stars[name] = d
         return {"reference_epoch": self.reference_epoch, "min_epochs": self.min_epochs,
-                "shared": shared, "stars": stars, "effects": dict(self.effects)}
+                "shared": shared, "stars": stars, "effects": dict(self.effects),
+                "datasets": dict(self.datasets), "fit": dict(self.fit)}
 
     def effect_switches(self):
         """The validated :class:`deepwell.effects.Effects` (defaults fill the gaps)."""
         return parse_effects(self.effects, file=self.source)
+
+    def dataset_config(self):
+        """The validated :class:`deepwell.datasets.DatasetConfig` of [datasets] and [fit]."""
+        return parse_datasets(self.datasets, self.fit, file=self.source)
 
 
 def _number(value, file, key):
@@ -217,8 +242,11 @@ def parse_settings(data, file=None):
     stars = {n: _star(n, s, file) for n, s in data.get("stars", {}).items()}
     effects = data.get("effects", {})
     parse_effects(effects, file=file)  # validate; kept as written (see effect_switches)
+    datasets, fit = data.get("datasets", {}), data.get("fit", {})
+    parse_datasets(datasets, fit, file=file)  # validate; kept as written (dataset_config)
     return Settings(reference_epoch=ref, min_epochs=min_epochs, shared=shared, stars=stars,
-                    effects=dict(effects), source=file, raw=data)
+                    effects=dict(effects), datasets=dict(datasets), fit=dict(fit), source=file,
+                    raw=data)
 
 
 def load_settings(path):
