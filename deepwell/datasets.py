@@ -466,7 +466,7 @@ class DatasetTerms:
         if not norm:
             return np.zeros(np.shape(vec)[:-1] + (0,))
         rows = []
-        for name, value, m in norm:
+        for _, value, m in norm:
             k = 2.0 * m * np.log(1.0 / SCALE_MIN) + 1.0  # m = 0 for a jitter
             rows.append(np.sqrt(np.maximum(value + k, 0.0)))
         return np.stack(np.broadcast_arrays(*rows), axis=-1)

@@ -120,7 +120,7 @@ def _settings_for(settings, observations, sub, by, unit):
         present = set()
         for frame in (sub.positions, sub.velocities):
             if len(frame):
-                for f, n in zip(frame["file"], frame["line"]):
+                for f, n in zip(frame["file"], frame["line"], strict=True):
                     present.add((str(f), int(n)))
         names = {(f.replace("\\", "/").rsplit("/", 1)[-1], n) for f, n in present} | present
         fit["exclude_rows"] = [r for r in rows if (r["file"], r["line"]) in names]
@@ -287,7 +287,7 @@ def plot_jackknife(jk, path_stem):
         FigureCanvasAgg(fig)
         axes = fig.subplots(1, 2, sharey=True)
         fig.subplots_adjust(left=0.2, right=0.97, top=0.86, bottom=0.2, wspace=0.08)
-        for ax, q, colour in zip(axes, _Q, ("#0072B2", "#D55E00")):
+        for ax, q, colour in zip(axes, _Q, ("#0072B2", "#D55E00"), strict=True):
             s = jk.full[q + "_sigma"]
             x = np.array([r[f"d_{q}_over_sigma"] for r in rows])
             bar = np.array([np.sqrt(max(r[q + "_sigma"] ** 2 - s**2, 0.0)) / s for r in rows])

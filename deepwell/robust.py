@@ -146,7 +146,7 @@ def _files(model):
             continue
         lookup = {}
         if len(frame) and "file" in frame:
-            for f, n in zip(frame["file"], frame["line"]):
+            for f, n in zip(frame["file"], frame["line"], strict=True):
                 lookup[int(n)] = Path(str(f)).name
         out.append([lookup.get(int(n), "") for n in rows.line])
     return out

@@ -55,7 +55,8 @@ STARS = {"t-1": (150, .86, 132, 228, 63, 2012.3), "t-2": (120, .35, 48, 140, 300
 
 def _star(name):
     a, e, i, o, w, t = STARS[name]
-    return f"[stars.{name}]\na = {a}\ne = {e}\ninc = {i}\nnode = {o}\nperi_arg = {w}\nt_peri = {t}\n"
+    return (f"[stars.{name}]\na = {a}\ne = {e}\ninc = {i}\nnode = {o}\nperi_arg = {w}\n"
+            f"t_peri = {t}\n")
 
 
 @pytest.fixture(scope="module")
