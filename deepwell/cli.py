@@ -6,6 +6,7 @@ user error into one line on stderr with exit status 2 (never a traceback).
 
 import argparse
 import logging
+import os
 import sys
 import time
 import warnings
@@ -90,6 +91,9 @@ def _parser():
     sub = parser.add_subparsers(dest="command", required=True)
     _add_fit(sub)
     _add_simulate(sub)
+    from .plan import add_plan_parser
+
+    add_plan_parser(sub)
     return parser
 
 
@@ -178,11 +182,15 @@ def _run_simulate(args):
 
 def main(argv=None):
     """Entry point of the ``deepwell`` command; returns the exit status."""
+    # One BLAS thread: the matrices are small and the cores are better used by
+    # the model and the sampler's processes (set before numpy is first imported).
+    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(var, "1")
     parser = _parser()
     args = parser.parse_args(argv)
     args.argv = list(sys.argv[1:] if argv is None else argv)
     logging.basicConfig(format="deepwell: %(message)s", stream=sys.stderr, force=True,
-                        level=logging.WARNING if args.quiet else logging.INFO)
+                        level=logging.WARNING if getattr(args, "quiet", False) else logging.INFO)
     logging.captureWarnings(True)
     try:
         with warnings.catch_warnings():

@@ -183,8 +183,9 @@ def minimise(model, vec0, free, lo, hi, max_nfev=None, restarts=8):
     total, best = 0, None
     for _ in range(restarts + 1):
         mini = lmfit.Minimizer(fun, params, scale_covar=False, calc_covar=False)
-        out = mini.minimize(method="least_squares", jac=jac, x_scale="jac", ftol=1e-10,
-                            xtol=1e-10, gtol=1e-10, max_nfev=budget)
+        with np.errstate(invalid="ignore", divide="ignore"):  # lmfit's own stderr step
+            out = mini.minimize(method="least_squares", jac=jac, x_scale="jac", ftol=1e-10,
+                                xtol=1e-10, gtol=1e-10, max_nfev=budget)
         total += out.nfev
         cost = float(np.sum(out.residual**2))
         improved = best is None or cost < best - 1e-3
@@ -237,7 +238,7 @@ def fit_joint(observations, settings, progress=None):
         vec2, changed = polish_stars(model, vec, poor)
         if changed:
             vec2, sol2 = minimise(model, vec2, free, lo, hi)
-            if model.chi2(vec2) < model.chi2(vec):
+            if np.sum(model.residuals(vec2) ** 2) < np.sum(model.residuals(vec) ** 2):
                 vec, sol = vec2, sol2
                 notes.append("a second search with the fitted mass, distance and frame "
                              "changed the orbit of " + ", ".join(changed))

@@ -483,6 +483,14 @@ def write_report(result, folder, figures=True, extra=None, posterior=None, profi
     from .state import write_state  # the saved fit, for later commands (plan, sampling)
 
     files.append(write_state(result, folder))
+    if posterior is not None:  # the samples themselves, for 'deepwell plan'
+        import numpy as np
+
+        path = folder / "posterior-samples.npz"
+        flat = np.asarray(posterior.internal_samples)
+        np.savez_compressed(path, internal_samples=flat.reshape(-1, flat.shape[-1]),
+                            internal_names=np.array(posterior.internal_names))
+        files.append(path)
     return files
 
 

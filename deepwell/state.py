@@ -91,7 +91,8 @@ def load_fit(report_dir, scenario=None):
     base = build_model(obs, settings)
     model = JointModel(obs, settings.reference_epoch, stars=state["stars"], priors=base.priors,
                        effects=base.effects, integrated=state["integrated"],
-                       reference_radius=state["reference_radius"])
+                       reference_radius=state["reference_radius"],
+                       datasets=base.dataset_config)
     if model.layout.names() != state["names"]:
         raise InputError("the saved parameters do not match the rebuilt model", file=str(path))
     vec = np.array(state["internal"])

@@ -1,6 +1,12 @@
 """Shared fixtures: small invented scenarios, simulated once per session."""
 
+import os
 import textwrap
+
+# One BLAS thread per test process: the matrices are small, and threads fighting
+# over 2 cores made single SVDs a hundred times slower (common practice).
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 
 import pytest
 
