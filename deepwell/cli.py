@@ -67,6 +67,20 @@ def _add_fit(sub):
     post.add_argument("--seed", type=int, default=0, help="random seed of the sampler")
     post.add_argument("--resume", action="store_true",
                       help="continue the sampling saved in REPORT_DIR.chains/")
+    ds = p.add_argument_group("data sets (the 'dataset' column; see [datasets] in the settings)")
+    ds.add_argument("--reference-set", nargs="+", metavar="NAME",
+                    help="data set(s) that define the frame and velocity zero (no offsets)")
+    ds.add_argument("--offsets", action="store_true",
+                    help="fit a position offset for every other frame-relative imaging set")
+    ds.add_argument("--drifts", action="store_true", help="... and an offset drift (mas/yr)")
+    ds.add_argument("--zero-points", action="store_true",
+                    help="fit a velocity zero-point for every other spectroscopic set")
+    ds.add_argument("--error-model", choices=("scale", "jitter", "none"),
+                    help="fit an error scale or an added jitter per data set")
+    ds.add_argument("--outliers", action="store_true",
+                    help="outlier-mixture likelihood instead of the plain Gaussian")
+    ds.add_argument("--jackknife", nargs="+", choices=("star", "dataset"),
+                    help="leave-one-out refits: the shift of mass and distance for each")
     prof = p.add_argument_group("enclosed mass")
     prof.add_argument("--external", metavar="CSV",
                       help="enclosed-mass constraints at larger radii (radius_pc, mass, mass_err)")
@@ -107,6 +121,7 @@ def _run_fit(args):
     t0 = time.perf_counter()
     settings = load_settings(args.settings) if args.settings else Settings()
     settings = _effect_settings(settings, args)
+    settings = _dataset_settings(settings, args)
     obs = read_observations(args.scenario, min_epochs=settings.min_epochs, strict=args.strict)
     tmp = prepare_output(args.out, replace=args.replace)
     try:
@@ -127,6 +142,13 @@ def _run_fit(args):
                 result, external=read_external_constraints(args.external))
         if args.sample:
             kwargs["posterior"] = _sample(result, args)
+        if args.jackknife:
+            from .jackknife import jackknife
+
+            kwargs["jackknife"] = []
+            for by in args.jackknife:
+                log.info("jackknife: leave one %s out", by)
+                kwargs["jackknife"].append(jackknife(obs, settings, by=by, result=result))
         log.info("writing the report")
         write_report(result, tmp, figures=not args.no_figures, extra=extra, **kwargs)
         install_output(tmp, args.out, replace=args.replace)
@@ -157,6 +179,20 @@ def _effect_settings(settings, args):
     if not any(v not in (None, False) for v in flags.values()):
         return settings
     return effects_from_args(settings, **flags)
+
+
+def _dataset_settings(settings, args):
+    """Settings with the command line's data-set switches applied."""
+    from .datasets import datasets_from_args
+
+    flags = dict(reference=args.reference_set, offsets=True if args.offsets else None,
+                 drifts=True if args.drifts else None,
+                 zero_points=True if args.zero_points else None,
+                 error_model=args.error_model,
+                 likelihood="mixture" if args.outliers else None)
+    if all(v is None for v in flags.values()):
+        return settings
+    return datasets_from_args(settings, **flags)
 
 
 def _sample(result, args):

@@ -423,7 +423,7 @@ ENCLOSED_CAPTION = (
 
 
 def write_report(result, folder, figures=True, extra=None, posterior=None, profile=None,
-                 extended_limits=None, effect_sizes=None):
+                 extended_limits=None, effect_sizes=None, jackknife=()):
     """Write the full report of ``result`` into ``folder``.
 
     Parameters
@@ -462,9 +462,15 @@ def write_report(result, folder, figures=True, extra=None, posterior=None, profi
         profile = enclosed_mass_profile(result)
     analyses = {"posterior": posterior, "profile": profile,
                 "extended_limits": extended_limits, "effect_sizes": effect_sizes}
+    from .report_robustness import (robustness_markdown, robustness_summary,
+                                    write_robustness_figures, write_robustness_tables)
+
+    jackknife = tuple(jackknife or ())
+    extra = {**(extra or {}), **robustness_summary(result, jackknife)}
     write_summary(result, folder / "summary.json", extra, **analyses)
     files = [folder / "summary.json"]
     files += write_tables(result, folder / "tables")
+    files += write_robustness_tables(result, folder / "tables", jackknife)
     files += write_extra_tables(result, folder / "tables", sizes=effect_sizes,
                                 limits=extended_limits, posterior=posterior, profile=profile)
     figs = {}
@@ -477,8 +483,10 @@ def write_report(result, folder, figures=True, extra=None, posterior=None, profi
         figs["enclosed_mass"] = {"caption": ENCLOSED_CAPTION,
                                  "files": plot_enclosed_mass(profile,
                                                              folder / "figures" / "enclosed_mass")}
+        figs.update(write_robustness_figures(jackknife, folder / "figures"))
         files += [p for f in figs.values() for p in f["files"]]
     write_markdown(result, folder / "report.md", figs, **analyses)
+    _insert_before_figures(folder / "report.md", robustness_markdown(result, jackknife))
     files.append(folder / "report.md")
     from .state import write_state  # the saved fit, for later commands (plan, sampling)
 
@@ -492,6 +500,15 @@ def write_report(result, folder, figures=True, extra=None, posterior=None, profi
                             internal_names=np.array(posterior.internal_names))
         files.append(path)
     return files
+
+
+def _insert_before_figures(path, text):
+    """Put a markdown section before the figures section of report.md (or at its end)."""
+    body = path.read_text()
+    mark = "\n## Figures"
+    i = body.find(mark)
+    body = body + "\n" + text if i < 0 else body[:i] + "\n" + text + body[i:]
+    path.write_text(body)
 
 
 def save_report(result, final_dir, replace=False, figures=True, extra=None, **analyses):

@@ -298,13 +298,20 @@ def test_cli_reports_a_missing_reference_set_clearly(shifted, tmp_path, capsys):
     assert "Traceback" not in err and not (tmp_path / "out").exists()
 
 
-def cli_switches_case(shifted, tmp_path, capsys):  # enable: rename to test_..., adapt flags
+def test_command_line_switches_for_data_sets(shifted, tmp_path, capsys):
+    import json
+
     from deepwell.cli import main
 
     code = main(["fit", str(shifted), "--out", str(tmp_path / "out"), "--no-figures", "-q",
-                 "--reference", "imager-A", "--reference", "spec-1", "--offsets",
-                 "--zero-points", "--error-model", "scale", "--likelihood", "mixture"])
+                 "--newtonian", "--reference-set", "imager-A", "spec-1", "--offsets",
+                 "--zero-points", "--error-model", "scale"])
     assert code == 0
+    sets = {(r["dataset"], r["kind"]): r
+            for r in json.loads((tmp_path / "out" / "summary.json").read_text())["datasets"]}
+    # the injected offset of imager-B (+3, -2 mas, see the fixture) within 4 sigma
+    b = sets[("imager-B", "positions")]
+    assert abs(b["dx"] - 3.0) < 4 * b["dx_err"] and abs(b["dy"] + 2.0) < 4 * b["dy_err"]
     bad = main(["fit", str(shifted), "--out", str(tmp_path / "out2"), "-q",
-                "--reference", "nowhere", "--offsets"])
+                "--reference-set", "nowhere", "--offsets"])
     assert bad == 2 and "'nowhere' is not in the data" in capsys.readouterr().err
