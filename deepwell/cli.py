@@ -105,9 +105,11 @@ def _parser():
     sub = parser.add_subparsers(dest="command", required=True)
     _add_fit(sub)
     _add_simulate(sub)
+    from .calibrate import add_calibrate_parser
     from .plan import add_plan_parser
 
     add_plan_parser(sub)
+    add_calibrate_parser(sub)
     return parser
 
 
