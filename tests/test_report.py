@@ -93,10 +93,11 @@ STAR_UNITS = {"period": "yr", "e": "", "a": "mas", "inc": "deg", "node": "deg",
 def test_summary_has_the_contract_keys_and_astropy_units(report_dir):
     data = json.loads((report_dir / "summary.json").read_text())
     # effect sizes and the enclosed-mass profile are computed by write_report itself;
-    # posterior, sampling and extended-mass entries appear only when given
+    # posterior, sampling, extended-mass and jackknife entries appear only when given;
+    # the per-data-set summary and the list of points beyond 4 sigma are always there
     assert set(data) == {"parameters", "stars", "fit", "mass_distance", "reference_epoch",
                          "software", "inputs", "settings", "notes", "dropped_stars",
-                         "compactness", "effects", "enclosed_mass"}
+                         "compactness", "effects", "enclosed_mass", "datasets", "outliers"}
     assert {k: v["unit"] for k, v in data["parameters"].items()} == SHARED_UNITS
     assert set(data["stars"]) == set(STARS)
     beside = {"integrated_period": "yr", "pericentre_observed": "yr"}
