@@ -64,6 +64,7 @@ from scipy import special
 
 from .errors import DeepwellError
 from .parameters import EXTRA, SHARED
+from .sampling.core import NoProgress
 from .tables import Observations
 
 __all__ = ["LEVELS", "BAND_LEVEL", "SampleOptions", "TrialSpec", "CalibrationResult",
@@ -328,22 +329,9 @@ def open_client(scheduler=None, n_workers=None, processes=True):
         chatty.setLevel(level)
 
 
-class _NoProgress:
-    """Do-nothing progress bar (same methods as tqdm)."""
-
-    def update(self, n=1):
-        pass
-
-    def set_postfix_str(self, text, refresh=True):
-        pass
-
-    def close(self):
-        pass
-
-
 def _progress(enabled, total):
     if not enabled:
-        return _NoProgress()
+        return NoProgress()
     if not isinstance(enabled, bool):
         return enabled
     from tqdm.auto import tqdm

@@ -1,6 +1,7 @@
 """The joint least-squares fit and its uncertainties.
 
-``fit_joint`` builds lmfit parameters (bounds, fixed entries) over the internal vector, finds starting
+``fit_joint`` builds lmfit parameters (bounds, fixed entries) over the internal
+vector, finds starting
 orbits automatically (:mod:`deepwell.start`), minimises the whitened residuals
 with bounds, fixed parameters and Gaussian priors, and returns a
 :class:`~deepwell.results.FitResult` with the covariance of the reported
@@ -15,8 +16,7 @@ import numpy as np
 
 from .model import JointModel, Prior
 from .parameters import EXTRA, SHARED, STAR_INTERNAL
-from .results import (FitResult, phase_coverage, physical_labels, physical_owner,
-                      physical_vector)
+from .results import FitResult, phase_coverage, physical_labels, physical_owner, physical_vector
 from .start import find_start, polish_stars
 
 __all__ = ["build_model", "bounds", "fit_joint", "minimise", "covariance", "assemble_result",
@@ -62,7 +62,8 @@ def bounds(model, settings):
             st = settings.stars.get(model.stars[int(k)])
             free[i] = not (st is not None and st.fixed)
             lo[i], hi[i] = {"period": (1e-3, np.inf), "sqe_cos": (-1.0, 1.0),
-                            "sqe_sin": (-1.0, 1.0), "cos_inc": (-1.0, 1.0)}.get(el, (-np.inf, np.inf))
+                            "sqe_sin": (-1.0, 1.0),
+                            "cos_inc": (-1.0, 1.0)}.get(el, (-np.inf, np.inf))
     return lo, hi, free
 
 

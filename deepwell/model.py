@@ -370,7 +370,7 @@ class JointModel:
         if self.priors:
             phys = None
             vals = []
-            for prior, slot in zip(self.priors, self._prior_index):
+            for prior, slot in zip(self.priors, self._prior_index, strict=True):
                 if slot[0] == "shared":
                     vals.append(self.layout.shared(vec, prior.name))
                 else:

@@ -48,8 +48,10 @@ SHARED = {
         ParameterSpec("distance", "pc", "distance to the central mass", 1.0, 1e9, r"R_0"),
         ParameterSpec("x0", "mas", "east offset of the mass at the reference epoch", latex="x_0"),
         ParameterSpec("y0", "mas", "north offset of the mass at the reference epoch", latex="y_0"),
-        ParameterSpec("vx0", "mas / yr", "eastward drift of the mass in the frame", latex=r"v_{x,0}"),
-        ParameterSpec("vy0", "mas / yr", "northward drift of the mass in the frame", latex=r"v_{y,0}"),
+        ParameterSpec("vx0", "mas / yr", "eastward drift of the mass in the frame",
+                      latex=r"v_{x,0}"),
+        ParameterSpec("vy0", "mas / yr", "northward drift of the mass in the frame",
+                      latex=r"v_{y,0}"),
         ParameterSpec("vz0", "km / s", "line-of-sight velocity of the mass", latex=r"v_{z,0}"),
     )
 }
@@ -79,7 +81,8 @@ STAR_ELEMENTS = {
         ParameterSpec("inc", "deg", "inclination", 0.0, 180.0, "i"),
         ParameterSpec("node", "deg", "position angle of the ascending node", latex=r"\Omega"),
         ParameterSpec("peri_arg", "deg", "argument of pericentre", latex=r"\omega"),
-        ParameterSpec("t_peri", "yr", "epoch of pericentre (Julian year, TT)", latex=r"t_\mathrm{p}"),
+        ParameterSpec("t_peri", "yr", "epoch of pericentre (Julian year, TT)",
+                      latex=r"t_\mathrm{p}"),
     )
 }
 

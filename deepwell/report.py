@@ -462,8 +462,12 @@ def write_report(result, folder, figures=True, extra=None, posterior=None, profi
         profile = enclosed_mass_profile(result)
     analyses = {"posterior": posterior, "profile": profile,
                 "extended_limits": extended_limits, "effect_sizes": effect_sizes}
-    from .report_robustness import (robustness_markdown, robustness_summary,
-                                    write_robustness_figures, write_robustness_tables)
+    from .report_robustness import (
+        robustness_markdown,
+        robustness_summary,
+        write_robustness_figures,
+        write_robustness_tables,
+    )
 
     jackknife = tuple(jackknife or ())
     extra = {**(extra or {}), **robustness_summary(result, jackknife)}

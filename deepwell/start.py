@@ -22,9 +22,9 @@ import numpy as np
 from scipy.optimize import least_squares
 
 from .constants import KEPLER_K, KMS_PER_AU_PER_YR
+from .errors import InputError
 from .kepler import solve_kepler
 from .orbit import a_from_period, elements_from_thiele_innes, keplerian_track, period_from_a
-from .errors import InputError
 from .parameters import SHARED, STAR_ELEMENTS, STAR_INTERNAL, internal_star_values
 
 __all__ = ["Candidate", "grid_search", "StartResult", "find_start"]
@@ -280,7 +280,7 @@ def find_start(model, settings, shared_start=None):
                          "give [shared.distance] a value (and fixed = true) in the settings")
     masses = np.array([KEPLER_K * (a * 1e-3 * dist) ** 3 / p**2 for a, p, _, _ in rows])
     weights = np.array([c**2 * n for _, _, c, n in rows])
-    for star, m in zip(model.stars, masses):
+    for star, m in zip(model.stars, masses, strict=True):
         res.star_mass[star] = float(m)
     mass = settings.shared_setting("mass").value or _weighted_median(masses, weights)
     shared.update(mass=mass, distance=dist)
@@ -369,7 +369,7 @@ def polish_stars(model, vec, stars):
     kep = model.keplerian()
     n_ex = len(model.layout.extra)
     kvec = np.concatenate([vec[:len(SHARED)], vec[len(SHARED) + n_ex:]])
-    sh = dict(zip(SHARED, kvec[:len(SHARED)]))
+    sh = dict(zip(SHARED, kvec[:len(SHARED)], strict=True))
     frame = (sh["x0"], sh["y0"], sh["vx0"], sh["vy0"], sh["vz0"])
     vec = np.array(vec, dtype=float)
     chi_now = model.star_chi2(vec)[0]

@@ -80,7 +80,8 @@ def load_fit(report_dir, scenario=None):
     try:
         state = json.loads(path.read_text())
     except (OSError, ValueError) as exc:
-        raise InputError(f"not a deepwell report with a saved fit ({exc})", file=str(path)) from None
+        raise InputError(f"not a deepwell report with a saved fit ({exc})",
+                         file=str(path)) from None
     folder = scenario or state["scenario"]
     settings = parse_settings(state["settings"], file=state.get("settings_file"))
     obs = read_observations(folder, min_epochs=settings.min_epochs)

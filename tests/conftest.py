@@ -8,9 +8,9 @@ import textwrap
 for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")
 
-import pytest
+import pytest  # noqa: E402
 
-from deepwell.simulate import write_scenario
+from deepwell.simulate import write_scenario  # noqa: E402
 
 # An invented nucleus for injection-recovery tests (no real object behind it).
 SMALL_SCENARIO = textwrap.dedent("""

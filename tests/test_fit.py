@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from deepwell.fit import build_model, covariance, fit_joint, minimise, bounds
+from deepwell.fit import bounds, covariance, fit_joint, minimise
 from deepwell.parameters import SHARED, internal_star_values
 from deepwell.settings import Settings, parse_settings
 from deepwell.tables import read_observations

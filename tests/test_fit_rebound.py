@@ -90,7 +90,7 @@ def test_fit_recovers_rebound_truth_within_joint_997_region(rebound_scenario):
     maha = diff @ np.linalg.solve(res.cov[np.ix_(idx, idx)], diff)
     assert maha < stats.chi2.ppf(0.997, len(names))
     # and each star's elements: eccentricity and inclination within 4 sigma
-    for name, (a, e, inc, node, peri, tp) in STARS.items():
+    for name, (_a, e, inc, node, _peri, _tp) in STARS.items():
         assert abs(res.value(f"{name}:e") - e) < 4 * res.sigma(f"{name}:e")
         assert abs(res.value(f"{name}:inc") - inc) < 4 * res.sigma(f"{name}:inc")
         dn = (res.value(f"{name}:node") - node + 180) % 360 - 180

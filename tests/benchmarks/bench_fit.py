@@ -54,8 +54,8 @@ def main(folder="scenarios/rich"):
     covariance(model, vec, free)
     times["uncertainties"] = time.perf_counter() - t
 
-    from deepwell.fit import fit_joint
     from deepwell.figures import write_figures
+    from deepwell.fit import fit_joint
     from deepwell.report import write_report
 
     result = fit_joint(obs, settings)
