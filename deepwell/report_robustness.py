@@ -21,6 +21,13 @@ _UNITS = {"dx": "mas", "dy": "mas", "dvx": "mas / yr", "dvy": "mas / yr", "dvz":
 
 
 def _clean(value):
+    """JSON-safe copy: non-finite floats become None, containers are cleaned too."""
+    if isinstance(value, dict):
+        return {k: _clean(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_clean(v) for v in value]
+    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
+        value = value.item()  # numpy scalar
     if isinstance(value, float) and not math.isfinite(value):
         return None
     return value
@@ -32,7 +39,7 @@ def robustness_summary(result, jackknife=()):
                         for row in dataset_summary(result)],
            "outliers": [{k: _clean(v) for k, v in row.items()} for row in outlier_table(result)]}
     if jackknife:
-        out["jackknife"] = [jk.to_dict() for jk in jackknife]
+        out["jackknife"] = [_clean(jk.to_dict()) for jk in jackknife]
     return out
 
 
@@ -90,7 +97,7 @@ def write_robustness_figures(jackknife, folder):
 
 
 def _fmt(v, err=None, digits=3):
-    if v is None:
+    if v is None or (isinstance(v, float) and not math.isfinite(v)):
         return "–"
     if err is None:
         return f"{v:.{digits}g}"
@@ -137,11 +144,12 @@ def robustness_markdown(result, jackknife=()):
     for jk in jackknife:
         d = jk.to_dict()
         lines += ["", f"## Jackknife: leave one {jk.by} out", ""]
-        lines.append("| left out | Δ mass (solMass) | Δ distance (pc) |")
-        lines.append("|---|---|---|")
+        lines.append("| left out | Δ mass (solMass) | Δ distance (pc) | note |")
+        lines.append("|---|---|---|---|")
         for r in d["rows"]:
             name = r.get("left_out", r.get("unit", ""))
-            lines.append(f"| {name} | {_fmt(r.get('d_mass'))} | {_fmt(r.get('d_distance'))} |")
+            lines.append(f"| {name} | {_fmt(r.get('d_mass'))} | {_fmt(r.get('d_distance'))} | "
+                         f"{r.get('note') or ''} |")
         js, ss = d["jackknife_sigma"], d["statistical_sigma"]
         lines.append("")
         lines.append(f"Jackknife error beside the statistical one: mass {_fmt(js.get('mass'))} "
