@@ -239,12 +239,15 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens):
                         f"{names[worst]} (need < {RHAT_MAX}; {bad.size} parameter(s) fail)")
     if n_ens < 2:
         problems.append("only one ensemble: R-hat across independent ensembles is unavailable")
-    ok_tau = np.nan_to_num(tau, nan=np.inf)
+    ok_tau = np.where(np.isfinite(tau), tau, np.inf)
     worst_tau = names[int(np.argmax(ok_tau))]
     rule = (f"rule: at least {RUN_TAUS} autocorrelation times per ensemble after discarding "
             f"{BURN_TAUS} as burn-in, and split R-hat < {RHAT_MAX} across >= 2 ensembles")
-    facts = (f"largest autocorrelation time {np.max(ok_tau):.0f} steps ({worst_tau}); "
-             f"largest R-hat {np.max(np.nan_to_num(rhat, nan=np.inf)):.4f}")
+    tau_text = (f"{np.max(ok_tau):.0f} steps" if np.isfinite(np.max(ok_tau))
+                else "not measurable")
+    rhat_max = np.max(np.where(np.isfinite(rhat), rhat, np.inf))
+    facts = (f"largest autocorrelation time {tau_text} ({worst_tau}); "
+             f"largest R-hat {rhat_max:.4f}")
     if problems:
         return False, ("NOT CONVERGED: the uncertainties below may be too small or biased. "
                        + "; ".join(problems) + f". ({rule}; {facts})")
