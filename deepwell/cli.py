@@ -135,8 +135,7 @@ def _run_fit(args):
 
             log.info("extended-mass limits: one fit per scale radius (%d)",
                      len(args.extended_mass))
-            kwargs["extended_limits"] = extended_mass_limits(obs, settings, args.extended_mass,
-                                                             fit=result)
+            kwargs["extended_limits"] = extended_mass_limits(obs, settings, args.extended_mass)
         if args.external:
             from .profile import enclosed_mass_profile, read_external_constraints
 

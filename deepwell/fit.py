@@ -14,6 +14,7 @@ import warnings
 import lmfit
 import numpy as np
 
+from .errors import InputError
 from .model import JointModel, Prior
 from .parameters import EXTRA, SHARED, STAR_INTERNAL
 from .results import FitResult, phase_coverage, physical_labels, physical_owner, physical_vector
@@ -130,6 +131,8 @@ def covariance(model, vec, free):
     exact Fisher information (:meth:`JointModel.information_jacobian`).
     """
     steps = _default_steps(model, vec)
+    if not np.any(free):
+        return np.zeros((0, 0)), 0
     for _ in range(2):
         jac = numerical_jacobian(model.residuals, vec, free, steps, model.layout,
                                  model.residual_owner())
@@ -225,6 +228,11 @@ def fit_joint(observations, settings, progress=None):
     if unused:
         start.notes.append("held at their starting values because no data constrain them: "
                            + ", ".join(unused))
+    if model.n_data < int(free.sum()):
+        raise InputError(f"{model.n_data} measured numbers cannot determine {int(free.sum())} "
+                         "free parameters: add data, drop poorly observed stars, or fix "
+                         "parameters in the settings (e.g. the distance)",
+                         file=str(observations.folder))
     vec0 = np.clip(start_vec, lo, hi)
     say(f"joint fit of {int(free.sum())} parameters to {model.n_data} data")
     vec, sol = minimise(model, vec0, free, lo, hi)

@@ -387,6 +387,9 @@ def candidate_epochs(start, end, months=None, per_season=1, epochs=None):
         return t[(t >= start) & (t <= end) & _observable(t, months)]
     fine = np.arange(np.floor(start) - 1.0, np.ceil(end) + 1.0, 1.0 / 12.0) + 1.0 / 24.0
     ok = _observable(fine, months).astype(int)
+    if ok.all():  # observable all year: every year is one season
+        ok[np.round((fine - 1.0 / 24.0) * 12).astype(int) % 12 == 0] = 0
+        ok = _observable(fine, months).astype(int) * (ok > 0)
     edges = np.flatnonzero(np.diff(np.concatenate([[0], ok, [0]])))
     out = []
     for a, b in zip(edges[0::2], edges[1::2], strict=True):

@@ -167,3 +167,29 @@ def test_effect_switches_reach_the_fit(scenario, tmp_path):
                  "--newtonian"]) == 0
     pars2 = json.loads((out2 / "summary.json").read_text())["parameters"]
     assert "f" not in pars2 and "f_sp" not in pars2
+
+
+def test_more_free_parameters_than_data_is_refused(tmp_path, capsys):
+    scen = tmp_path / "s"
+    scen.mkdir()
+    # one star, four positions and two velocities: 10 numbers for 7 shared + 6 star
+    # parameters
+    rows = "\n".join(f"x,{2015 + k},{10 + k},{20 - k},0.5,0.5" for k in range(4))
+    (scen / "positions.csv").write_text(GOOD_POS + rows + "\n")
+    (scen / "velocities.csv").write_text("star,epoch,vr,vr_err\nx,2016.0,100.0,10.0\n"
+                                         "x,2017.0,150.0,10.0\n")
+    assert main(["fit", str(scen), "--out", str(tmp_path / "rep"), "--newtonian"]) == 2
+    assert "cannot determine" in _one_line_error(capsys)
+
+
+def test_extended_mass_limits_reach_the_report(scenario, tmp_path):
+    out = tmp_path / "rep"
+    assert main(["fit", str(scenario), "--out", str(out), "--no-figures", "-q",
+                 "--extended-mass", "800"]) == 0
+    limits = json.loads((out / "summary.json").read_text())["extended_mass"]
+    assert len(limits) == 1 and limits[0]["scale_radius"]["value"] == 800.0
+    # no extended mass was simulated: the 99.7% upper limit lies above the 95% one and
+    # above zero (a truncated-Gaussian limit is positive by construction, common practice)
+    lim = limits[0]
+    up95, up997 = lim["upper_95"]["value"], lim["upper_997"]["value"]
+    assert 0 < up95 < up997

@@ -485,3 +485,13 @@ def test_posterior_samples_are_used_and_checked(newtonian_fit, tmp_path):
     np.savez(path, internal_samples=samples, internal_names=np.array(["x"] * samples.shape[1]))
     with pytest.raises(InputError, match="do not match"):
         load_samples(path, res)
+
+
+def test_all_year_observability_gives_one_candidate_per_year():
+    # without an observability window every Julian year is one season (common practice:
+    # one observing campaign per year)
+    from deepwell.plan import candidate_epochs
+
+    t = candidate_epochs(2025.0, 2035.0)
+    assert len(t) == 10
+    assert np.allclose(np.diff(t), 1.0)
