@@ -251,12 +251,44 @@ def fit_joint(observations, settings, progress=None):
                 vec, sol = vec2, sol2
                 notes.append("a second search with the fitted mass, distance and frame "
                              "changed the orbit of " + ", ".join(changed))
+    vec, sol, aliased = _alias_retry(model, vec, sol, free, lo, hi)
+    if aliased:
+        notes.append("a joint retry with the period of " + ", ".join(aliased) + " multiplied or "
+                     "divided by 2 or 3 lowered the chi-square (seasonal sampling aliases "
+                     "periods); that solution was kept")
     notes += _coverage_notes(model, vec)
     say("uncertainties from the Jacobian at the solution")
     if not sol.success:
         notes.append(f"the optimiser stopped without convergence: {sol.message}")
     return assemble_result(model, vec, free, settings, observations, notes,
                            converged=bool(sol.success), nfev=int(sol.nfev))
+
+
+def _alias_retry(model, vec, sol, free, lo, hi, factors=(2.0, 0.5, 3.0, 1.0 / 3.0)):
+    """Joint refits with a badly fitting star's period scaled by small integer ratios.
+
+    Data taken once a year leave P and P/2, 2P, ... nearly equally good for one
+    star; only a joint refit (mass, distance and frame free) tells them apart.
+    Tried only for stars whose reduced chi-square exceeds 2.
+    """
+    chi, ndat = model.star_chi2(vec)
+    red = chi / np.maximum(ndat - len(STAR_INTERNAL), 1)
+    cost = float(np.sum(model.residuals(vec) ** 2))
+    changed = []
+    for k in np.flatnonzero(red > 2.0):
+        i_per = model.layout.n_shared + k * len(STAR_INTERNAL)
+        if not free[i_per]:
+            continue
+        for f in factors:
+            trial = vec.copy()
+            trial[i_per] *= f
+            v2, s2 = minimise(model, trial, free, lo, hi, restarts=2)
+            c2 = float(np.sum(model.residuals(v2) ** 2))
+            if c2 < cost - 1.0:
+                vec, sol, cost = v2, s2, c2
+                changed.append(model.stars[k])
+                break
+    return vec, sol, changed
 
 
 def _unconstrained_shared(model):
