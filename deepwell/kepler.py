@@ -11,7 +11,7 @@ Two implementations share one interface:
   convert to float64.  It is non-iterative: Markley's cubic starting value and
   one fifth-order correction; the sine and cosine of the result come from
   those of the starting value rotated through the small correction.  The cube
-  root, sine and cosine are evaluated inline (bit-pattern guess plus Halley
+  root, sine and cosine are evaluated inline (bit-pattern guess plus third-order
   steps; Taylor polynomials after a quadrant reduction), so the loops are pure
   arithmetic that the compiler vectorises, and the whole solve costs less than
   one ``numpy.sin`` + ``numpy.cos`` pass over the same array;
@@ -118,7 +118,7 @@ def _kepler_loop(mean_anomaly, ecc, ecc_anom, sin_e, cos_e):
     arrays of one length; ``ecc`` has that length or length 1.  The work goes
     in chunks through short loops of pure arithmetic, which the compiler
     vectorises: the cube root of the starter and the sine and cosine of the
-    starting value are computed inline (bit-pattern guess plus Halley steps,
+    starting value are computed inline (bit-pattern guess plus third-order Householder steps,
     and Taylor polynomials after a quadrant reduction).
     """
     n = mean_anomaly.size
@@ -161,7 +161,7 @@ def _kepler_loop(mean_anomaly, ecc, ecc_anom, sin_e, cos_e):
         for j in range(k):
             e = buf[_ECC + j]
             m = buf[_MRED + j]
-            # Cube root of t: three Halley steps y <- y (y^3 + 2t) / (2y^3 + t)
+            # Cube root of t: three third-order Householder steps y <- y (y^3 + 2t) / (2y^3 + t)
             # from the bit-pattern guess (error 6e-2 -> 1e-4 -> 1e-12 -> 1e-16).
             t = buf[_TT + j]
             y = buf[_GG + j]
