@@ -16,7 +16,7 @@ from deepwell.tables import (
 )
 
 HEAD = "star,epoch,ra,dec,ra_err,dec_err"
-ROW = "S2,2019.5,1.5,-2.5,0.3,0.4"
+ROW = "tb-2,2019.5,1.5,-2.5,0.3,0.4"
 
 
 def write(path, text, encoding="utf-8"):
@@ -25,7 +25,7 @@ def write(path, text, encoding="utf-8"):
     return path
 
 
-def positions(n_epochs=3, star="S2", start=2010.0):
+def positions(n_epochs=3, star="tb-2", start=2010.0):
     """Rows of a valid positions table for one star."""
     return "".join(f"{star},{start + k},{k},{-k},0.5,0.5\n" for k in range(n_epochs))
 
@@ -50,13 +50,13 @@ def check_error(exc_info, path, row, column, fragment):
 def test_round_trip_values_and_defaults(tmp_path):
     path = write(tmp_path / "positions.csv",
                  " Star , EPOCH,ra,dec,ra_err,dec_err,note\n"
-                 "S2,2019.5,1.5,-2.5,0.3,0.4,hello\n"
+                 "tb-2,2019.5,1.5,-2.5,0.3,0.4,hello\n"
                  "\n"
-                 "S2, 2020.25 ,2,3,0.1,0.2,\n")
+                 "tb-2, 2020.25 ,2,3,0.1,0.2,\n")
     df = read_positions(path)
     assert list(df.columns) == ["star", "epoch", "ra", "dec", "ra_err", "dec_err", "corr",
                                 "dataset", "relative_to", "exclude", "line", "file"]
-    assert list(df.star) == ["S2", "S2"]
+    assert list(df.star) == ["tb-2", "tb-2"]
     np.testing.assert_array_equal(df.epoch, [2019.5, 2020.25])
     np.testing.assert_array_equal(df.ra, [1.5, 2.0])
     np.testing.assert_array_equal(df.dec, [-2.5, 3.0])
@@ -74,14 +74,14 @@ def test_round_trip_values_and_defaults(tmp_path):
 def test_optional_columns(tmp_path):
     path = write(tmp_path / "p.csv",
                  f"{HEAD},corr,dataset,relative_to,exclude\n"
-                 "S2,2001,1,1,1,1,0.5,NACO,Mass,YES\n"
-                 "S2,2002,1,1,1,1,-0.25,GRAVITY,frame,no\n"
-                 "S2,2003,1,1,1,1,,,,\n"
-                 "S2,2004,1,1,1,1,0,x,mass,1\n"
-                 "S2,2005,1,1,1,1,0,x,mass,False\n")
+                 "tb-2,2001,1,1,1,1,0.5,imager-a,Mass,YES\n"
+                 "tb-2,2002,1,1,1,1,-0.25,fringe-b,frame,no\n"
+                 "tb-2,2003,1,1,1,1,,,,\n"
+                 "tb-2,2004,1,1,1,1,0,x,mass,1\n"
+                 "tb-2,2005,1,1,1,1,0,x,mass,False\n")
     df = read_positions(path)
     np.testing.assert_array_equal(df["corr"], [0.5, -0.25, 0.0, 0.0, 0.0])
-    assert list(df.dataset) == ["NACO", "GRAVITY", "default", "x", "x"]
+    assert list(df.dataset) == ["imager-a", "fringe-b", "default", "x", "x"]
     assert list(df.relative_to) == ["mass", "frame", "frame", "mass", "mass"]
     assert list(df.exclude) == [True, False, False, True, False]
 
@@ -89,7 +89,7 @@ def test_optional_columns(tmp_path):
 def test_byte_order_mark_accepted(tmp_path):
     path = write(tmp_path / "p.csv", "\ufeff" + HEAD + "\n" + ROW + "\n")
     df = read_positions(path)
-    assert list(df.star) == ["S2"] and df.epoch[0] == 2019.5
+    assert list(df.star) == ["tb-2"] and df.epoch[0] == 2019.5
 
 
 def test_iso_dates_are_utc_converted_to_tt_julian_epoch(tmp_path):
@@ -97,10 +97,10 @@ def test_iso_dates_are_utc_converted_to_tt_julian_epoch(tmp_path):
     # J2000.0; TT - UTC = 32.184 s + 32 leap seconds) [common practice]
     path = write(tmp_path / "p.csv",
                  f"{HEAD}\n"
-                 "S2,2000-01-01T11:58:55.816,1,1,1,1\n"
-                 "S2,2000-01-02 11:58:55.816,1,1,1,1\n"
-                 "S2,2019-05-03,1,1,1,1\n"
-                 "S2,2019.5,1,1,1,1\n")
+                 "tb-2,2000-01-01T11:58:55.816,1,1,1,1\n"
+                 "tb-2,2000-01-02 11:58:55.816,1,1,1,1\n"
+                 "tb-2,2019-05-03,1,1,1,1\n"
+                 "tb-2,2019.5,1,1,1,1\n")
     df = read_positions(path)
     assert abs(df.epoch[0] - 2000.0) < 1e-9
     assert abs(df.epoch[1] - (2000.0 + 1 / 365.25)) < 1e-9  # space instead of 'T' is fine
@@ -111,7 +111,7 @@ def test_iso_dates_are_utc_converted_to_tt_julian_epoch(tmp_path):
 
 
 def test_future_dates_raise_no_warning(tmp_path):
-    path = write(tmp_path / "p.csv", f"{HEAD}\nS2,2090-06-01T00:00:00,1,1,1,1\n")
+    path = write(tmp_path / "p.csv", f"{HEAD}\ntb-2,2090-06-01T00:00:00,1,1,1,1\n")
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # stricter than pyproject: nothing may leak out
         df = read_positions(path)
@@ -120,12 +120,12 @@ def test_future_dates_raise_no_warning(tmp_path):
 
 def test_velocities_round_trip(tmp_path):
     path = write(tmp_path / "velocities.csv",
-                 "star,epoch,vr,vr_err,dataset,exclude\nS2,2018.3,-1200.5,15,SINFONI,\n")
+                 "star,epoch,vr,vr_err,dataset,exclude\ntb-2,2018.3,-1200.5,15,spec-c,\n")
     df = read_velocities(path)
     assert list(df.columns) == ["star", "epoch", "vr", "vr_err", "dataset", "exclude",
                                 "line", "file"]
-    assert (df.star[0], df.epoch[0], df.vr[0], df.vr_err[0]) == ("S2", 2018.3, -1200.5, 15.0)
-    assert df.dataset[0] == "SINFONI" and not df.exclude[0] and df.line[0] == 2
+    assert (df.star[0], df.epoch[0], df.vr[0], df.vr_err[0]) == ("tb-2", 2018.3, -1200.5, 15.0)
+    assert df.dataset[0] == "spec-c" and not df.exclude[0] and df.line[0] == 2
 
 
 ECSV_HEAD = """# %ECSV 1.0
@@ -144,8 +144,8 @@ def test_ecsv_units_converted(tmp_path):
 # - {name: dec_err, unit: mas, datatype: float64}
 # - {name: Comment, datatype: string}
 star epoch ra dec ra_err dec_err Comment
-S2 2019.5 0.1 0.000001 0.0005 0.4 x
-S2 2020.5 -0.025 0.0 0.001 0.4 y
+tb-2 2019.5 0.1 0.000001 0.0005 0.4 x
+tb-2 2020.5 -0.025 0.0 0.001 0.4 y
 """)
     df = read_positions(path)
     np.testing.assert_allclose(df.ra, [100.0, -25.0], rtol=1e-12)
@@ -170,7 +170,7 @@ def test_ecsv_velocity_units_and_time_column(tmp_path):
 #       scale: tt
 #       value: !astropy.table.SerializedColumn {name: epoch}
 star epoch vr vr_err
-S2 2018.25 -1500000.0 10
+tb-2 2018.25 -1500000.0 10
 """)
     df = read_velocities(path)
     assert df.vr[0] == pytest.approx(-1500.0, rel=1e-12) and df.vr_err[0] == 10.0
@@ -186,7 +186,7 @@ def test_ecsv_bad_unit(tmp_path):
 # - {name: ra_err, datatype: float64}
 # - {name: dec_err, datatype: float64}
 star epoch ra dec ra_err dec_err
-S2 2019.5 1 1 1 1
+tb-2 2019.5 1 1 1 1
 """)
     with pytest.raises(InputError) as info:
         read_positions(path)
@@ -202,8 +202,8 @@ def test_ecsv_bad_value_names_line(tmp_path):
 # - {name: ra_err, datatype: float64}
 # - {name: dec_err, datatype: float64}
 star epoch ra dec ra_err dec_err
-S2 2019.5 1 1 1 1
-S2 2020.5 1 1 -1 1
+tb-2 2019.5 1 1 1 1
+tb-2 2020.5 1 1 -1 1
 """)
     with pytest.raises(InputError) as info:
         read_positions(path)
@@ -214,31 +214,31 @@ S2 2020.5 1 1 -1 1
 
 BAD = [
     # (file text, line, column, what the message says)
-    (f"{HEAD}\n{ROW}\nS2,2020,abc,1,1,1\n", 3, "ra", "not a number: 'abc'"),
-    (f"{HEAD}\nS2,2020,1,,1,1\n", 2, "dec", "empty cell"),
-    (f"{HEAD}\nS2,2020,1,nan,1,1\n", 2, "dec", "not a finite number"),
-    (f"{HEAD}\nS2,2020,1,1,inf,1\n", 2, "ra_err", "not a finite number"),
-    (f"{HEAD}\n{ROW}\n\nS2,2020,1,1,-0.5,1\n", 4, "ra_err", "positive: '-0.5'"),
-    (f"{HEAD}\nS2,2020,1,1,1,0\n", 2, "dec_err", "positive: '0'"),
-    (f"{HEAD},corr\nS2,2020,1,1,1,1,1.0\n", 2, "corr", "between -1 and 1"),
-    (f"{HEAD},corr\nS2,2020,1,1,1,1,-1.5\n", 2, "corr", "between -1 and 1"),
-    (f"{HEAD},relative_to\nS2,2020,1,1,1,1,sun\n", 2, "relative_to", "'sun'"),
-    (f"{HEAD},exclude\nS2,2020,1,1,1,1,maybe\n", 2, "exclude", "'maybe'"),
+    (f"{HEAD}\n{ROW}\ntb-2,2020,abc,1,1,1\n", 3, "ra", "not a number: 'abc'"),
+    (f"{HEAD}\ntb-2,2020,1,,1,1\n", 2, "dec", "empty cell"),
+    (f"{HEAD}\ntb-2,2020,1,nan,1,1\n", 2, "dec", "not a finite number"),
+    (f"{HEAD}\ntb-2,2020,1,1,inf,1\n", 2, "ra_err", "not a finite number"),
+    (f"{HEAD}\n{ROW}\n\ntb-2,2020,1,1,-0.5,1\n", 4, "ra_err", "positive: '-0.5'"),
+    (f"{HEAD}\ntb-2,2020,1,1,1,0\n", 2, "dec_err", "positive: '0'"),
+    (f"{HEAD},corr\ntb-2,2020,1,1,1,1,1.0\n", 2, "corr", "between -1 and 1"),
+    (f"{HEAD},corr\ntb-2,2020,1,1,1,1,-1.5\n", 2, "corr", "between -1 and 1"),
+    (f"{HEAD},relative_to\ntb-2,2020,1,1,1,1,sun\n", 2, "relative_to", "'sun'"),
+    (f"{HEAD},exclude\ntb-2,2020,1,1,1,1,maybe\n", 2, "exclude", "'maybe'"),
     (f"{HEAD}\n{ROW}\n ,2020,1,1,1,1\n", 3, "star", "empty star name"),
-    (f"{HEAD}\nS2,2019-02-30,1,1,1,1\n", 2, "epoch", "'2019-02-30'"),
-    (f"{HEAD}\nS2,yesterday,1,1,1,1\n", 2, "epoch", "not a number or ISO date"),
-    (f"{HEAD}\nS2,2020,1,1,1\n", 2, "dec_err", "empty cell"),  # a cell short
-    (f"{HEAD}\nS2,2020,1,1,1,1,7\n", 2, None, "7 cells but the header has 6"),
-    (f"{HEAD}\n{ROW}\nS1,2020,1,1,1,1\n{ROW}\n", 4, None, "already on line 2"),
+    (f"{HEAD}\ntb-2,2019-02-30,1,1,1,1\n", 2, "epoch", "'2019-02-30'"),
+    (f"{HEAD}\ntb-2,yesterday,1,1,1,1\n", 2, "epoch", "not a number or ISO date"),
+    (f"{HEAD}\ntb-2,2020,1,1,1\n", 2, "dec_err", "empty cell"),  # a cell short
+    (f"{HEAD}\ntb-2,2020,1,1,1,1,7\n", 2, None, "7 cells but the header has 6"),
+    (f"{HEAD}\n{ROW}\ntb-1,2020,1,1,1,1\n{ROW}\n", 4, None, "already on line 2"),
     (f"Star,epoch,ra,DEC,ra_err,dec_err,dec\n{ROW}\n", 1, "dec", "appears twice"),
-    ("star;epoch;ra;dec;ra_err;dec_err\nS2;2020;1;1;1;1\n", 1, None,
+    ("star;epoch;ra;dec;ra_err;dec_err\ntb-2;2020;1;1;1;1\n", 1, None,
      "expected comma-separated columns; found ';'"),
-    ("star\tepoch\tra\tdec\tra_err\tdec_err\nS2\t2020\t1\t1\t1\t1\n", 1, None,
+    ("star\tepoch\tra\tdec\tra_err\tdec_err\ntb-2\t2020\t1\t1\t1\t1\n", 1, None,
      "expected comma-separated columns; found tabs"),
     (f"{HEAD}\n", None, None, "no data rows"),
     (f"{HEAD}\n\n  \n", None, None, "no data rows"),
     ("", None, None, "no data rows"),
-    ("star,epoch,ra,dec,dec_err\nS2,2020,1,1,1\n", None, "ra_err",
+    ("star,epoch,ra,dec,dec_err\ntb-2,2020,1,1,1\n", None, "ra_err",
      "missing required column 'ra_err'"),
 ]
 
@@ -252,7 +252,7 @@ def test_bad_positions(tmp_path, text, line, column, fragment):
 
 
 def test_duplicate_names_both_lines(tmp_path):
-    path = write(tmp_path / "p.csv", f"{HEAD}\n{ROW}\nS2,2019.5,9,9,1,1\n")
+    path = write(tmp_path / "p.csv", f"{HEAD}\n{ROW}\ntb-2,2019.5,9,9,1,1\n")
     with pytest.raises(InputError) as info:
         read_positions(path)
     check_error(info, path, 3, None, "already on line 2")
@@ -264,10 +264,10 @@ def test_same_epoch_other_dataset_is_no_duplicate(tmp_path):
 
 
 @pytest.mark.parametrize("text, line, column, fragment", [
-    ("star,epoch,vr\nS2,2020,1\n", None, "vr_err", "missing required column"),
-    ("star,epoch,vr,vr_err\nS2,2020,fast,1\n", 2, "vr", "not a number: 'fast'"),
-    ("star,epoch,vr,vr_err\nS2,2020,1,-3\n", 2, "vr_err", "positive"),
-    ("star,epoch,vr,vr_err,exclude\nS2,2020,1,3,2\n", 2, "exclude", "'2'"),
+    ("star,epoch,vr\ntb-2,2020,1\n", None, "vr_err", "missing required column"),
+    ("star,epoch,vr,vr_err\ntb-2,2020,fast,1\n", 2, "vr", "not a number: 'fast'"),
+    ("star,epoch,vr,vr_err\ntb-2,2020,1,-3\n", 2, "vr_err", "positive"),
+    ("star,epoch,vr,vr_err,exclude\ntb-2,2020,1,3,2\n", 2, "exclude", "'2'"),
 ])
 def test_bad_velocities(tmp_path, text, line, column, fragment):
     path = write(tmp_path / "velocities.csv", text)
@@ -295,7 +295,7 @@ def test_unreadable_file(tmp_path):
 
 def test_read_observations(tmp_path):
     pos = write(tmp_path / "positions.csv", HEAD + "\n" + positions(3))
-    vel = write(tmp_path / "velocities.csv", "star,epoch,vr,vr_err\nS2,2011,100,10\n")
+    vel = write(tmp_path / "velocities.csv", "star,epoch,vr,vr_err\ntb-2,2011,100,10\n")
     obs = read_observations(tmp_path)
     assert isinstance(obs, Observations)
     assert len(obs.positions) == 3 and len(obs.velocities) == 1
@@ -317,44 +317,44 @@ def test_no_velocity_table_gives_empty_frame(tmp_path):
 
 def test_star_with_two_epochs_dropped(tmp_path):
     pos = write(tmp_path / "positions.csv",
-                HEAD + "\n" + positions(3) + positions(2, star="S29"))
-    write(tmp_path / "velocities.csv", "star,epoch,vr,vr_err\nS29,2011,100,10\n")
-    with pytest.warns(DataWarning, match=r"positions\.csv.*S29"):
+                HEAD + "\n" + positions(3) + positions(2, star="tb-29"))
+    write(tmp_path / "velocities.csv", "star,epoch,vr,vr_err\ntb-29,2011,100,10\n")
+    with pytest.warns(DataWarning, match=r"positions\.csv.*tb-29"):
         obs = read_observations(tmp_path)
-    assert set(obs.positions.star) == {"S2"}
+    assert set(obs.positions.star) == {"tb-2"}
     assert obs.velocities.empty  # dropped from both tables
-    assert obs.dropped_stars == (("S29", str(pos), "only 2 usable position epochs (need 3)"),)
+    assert obs.dropped_stars == (("tb-29", str(pos), "only 2 usable position epochs (need 3)"),)
     assert len(read_observations(tmp_path, min_epochs=2).positions) == 5
 
 
 def test_star_with_two_epochs_strict(tmp_path):
     pos = write(tmp_path / "positions.csv",
-                HEAD + "\n" + positions(3) + positions(2, star="S29"))
+                HEAD + "\n" + positions(3) + positions(2, star="tb-29"))
     with pytest.raises(InputError) as info:
         read_observations(tmp_path, strict=True)
-    check_error(info, pos, 5, "star", "'S29'")
+    check_error(info, pos, 5, "star", "'tb-29'")
 
 
 def test_excluded_epochs_do_not_count(tmp_path):
     write(tmp_path / "positions.csv", f"{HEAD},exclude\n"
-          "S2,2001,1,1,1,1,yes\nS2,2002,1,1,1,1,\nS2,2003,1,1,1,1,no\n"
-          "S1,2001,1,1,1,1,\nS1,2002,1,1,1,1,\nS1,2003,1,1,1,1,\n")
-    with pytest.warns(DataWarning, match="S2"):
+          "tb-2,2001,1,1,1,1,yes\ntb-2,2002,1,1,1,1,\ntb-2,2003,1,1,1,1,no\n"
+          "tb-1,2001,1,1,1,1,\ntb-1,2002,1,1,1,1,\ntb-1,2003,1,1,1,1,\n")
+    with pytest.warns(DataWarning, match="tb-2"):
         obs = read_observations(tmp_path)
-    assert set(obs.positions.star) == {"S1"}
+    assert set(obs.positions.star) == {"tb-1"}
 
 
 def test_velocities_for_unknown_star_dropped(tmp_path):
     write(tmp_path / "positions.csv", HEAD + "\n" + positions(3))
     vel = write(tmp_path / "velocities.csv",
-                "star,epoch,vr,vr_err\nS2,2011,100,10\nS99,2011,100,10\n")
-    with pytest.warns(DataWarning, match=r"velocities\.csv.*S99"):
+                "star,epoch,vr,vr_err\ntb-2,2011,100,10\ntb-99,2011,100,10\n")
+    with pytest.warns(DataWarning, match=r"velocities\.csv.*tb-99"):
         obs = read_observations(tmp_path)
-    assert list(obs.velocities.star) == ["S2"]
-    assert obs.dropped_stars == (("S99", str(vel), "velocities but no positions"),)
+    assert list(obs.velocities.star) == ["tb-2"]
+    assert obs.dropped_stars == (("tb-99", str(vel), "velocities but no positions"),)
     with pytest.raises(InputError) as info:
         read_observations(tmp_path, strict=True)
-    check_error(info, vel, 3, "star", "'S99'")
+    check_error(info, vel, 3, "star", "'tb-99'")
 
 
 def test_every_star_dropped(tmp_path):
@@ -365,7 +365,7 @@ def test_every_star_dropped(tmp_path):
 
 
 def test_folder_without_positions(tmp_path):
-    write(tmp_path / "velocities.csv", "star,epoch,vr,vr_err\nS2,2011,100,10\n")
+    write(tmp_path / "velocities.csv", "star,epoch,vr,vr_err\ntb-2,2011,100,10\n")
     with pytest.raises(InputError) as info:
         read_observations(tmp_path)
     check_error(info, tmp_path, None, None, "no positions table")
@@ -381,7 +381,7 @@ def test_csv_and_ecsv_both_present(tmp_path):
 
 def test_bad_table_in_folder_names_its_file(tmp_path):
     write(tmp_path / "positions.csv", HEAD + "\n" + positions(3))
-    vel = write(tmp_path / "velocities.csv", "star,epoch,vr,vr_err\nS2,2011,100,0\n")
+    vel = write(tmp_path / "velocities.csv", "star,epoch,vr,vr_err\ntb-2,2011,100,0\n")
     with pytest.raises(InputError) as info:
         read_observations(tmp_path)
     check_error(info, vel, 2, "vr_err", "positive")
