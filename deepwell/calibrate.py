@@ -39,7 +39,12 @@ Dask
     thousands of trials need little memory.  A trial that fails is recorded
     with its error, never dropped silently.
 
-Documented demo (not in the default test suite; ~1 h on 2 cores)::
+Journal
+    Finished trials are saved one by one to ``OUT.trials.jsonl``
+    (:mod:`deepwell.calibrate_journal`); ``--resume`` continues a run that
+    was interrupted.
+
+Documented demo (not in the default test suite; ~2.5 h on 2 cores)::
 
     deepwell calibrate scenarios/rich --trials 800 --out calib-rich
 
@@ -339,11 +344,14 @@ def _progress(enabled, total):
     return tqdm(total=total, desc="trials", unit="trial", dynamic_ncols=True)
 
 
-def run_trials(client, spec, n_trials, progress=None, in_flight=None):
+def run_trials(client, spec, n_trials, progress=None, in_flight=None, done=None,
+               on_record=None):
     """Run trials 0..n_trials-1 on ``client``; return the records in trial order.
 
     At most ``in_flight`` trials (default 4 per worker) are submitted at once.
     A trial whose worker dies is recorded as failed with the Dask error.
+    ``done`` maps trial index -> record of trials already run (they are not
+    run again); ``on_record(record)`` is called as each new trial finishes.
     """
     from distributed import as_completed
 
@@ -355,8 +363,10 @@ def run_trials(client, spec, n_trials, progress=None, in_flight=None):
     run_id = uuid.uuid4().hex[:12]  # task keys unique even for equal runs on one scheduler
     n_workers = max(1, len(client.scheduler_info().get("workers", {})))
     in_flight = in_flight or 4 * n_workers
+    done = {i: r for i, r in (done or {}).items() if i < n_trials}
     bar = _progress(progress, n_trials)
-    todo = iter(range(n_trials))
+    bar.update(len(done))
+    todo = iter([i for i in range(n_trials) if i not in done])
     futures = {}
 
     def submit(i):
@@ -365,7 +375,8 @@ def run_trials(client, spec, n_trials, progress=None, in_flight=None):
         return fut
 
     queue = as_completed([submit(i) for _, i in zip(range(in_flight), todo, strict=False)])
-    records, failed = {}, 0
+    records = dict(done)
+    failed = sum(r["status"] == "failed" for r in done.values())
     for fut in queue:
         i = futures.pop(fut.key)
         try:
@@ -373,6 +384,8 @@ def run_trials(client, spec, n_trials, progress=None, in_flight=None):
         except Exception as exc:  # worker lost, task cancelled
             rec = {"trial": i, "status": "failed", "message": f"{type(exc).__name__}: {exc}"}
         records[i] = rec
+        if on_record is not None:
+            on_record(rec)
         failed += rec["status"] == "failed"
         bar.update(1)
         bar.set_postfix_str(f"{failed} failed", refresh=False)
@@ -470,7 +483,7 @@ def summarise(trials, truth, level=BAND_LEVEL):
 
 
 def calibrate(description, n_trials, seed=0, settings=None, sample=None, client=None,
-              progress=None, in_flight=None):
+              progress=None, in_flight=None, journal=None, resume=False):
     """Simulate, fit and score ``n_trials`` data sets of a scenario.
 
     Parameters
@@ -486,6 +499,11 @@ def calibrate(description, n_trials, seed=0, settings=None, sample=None, client=
     client : distributed.Client, optional
         Default: a local cluster for the duration of the call.
     progress : bool or tqdm-like, optional
+    journal : str or Path, optional
+        Save each finished trial there as it arrives
+        (:class:`deepwell.calibrate_journal.TrialJournal`).
+    resume : bool
+        Skip the trials already in ``journal``.
 
     Returns
     -------
@@ -496,12 +514,21 @@ def calibrate(description, n_trials, seed=0, settings=None, sample=None, client=
     settings = fit_settings(description, settings)
     names = calibrated_names(settings)
     spec = TrialSpec(description, settings, names, int(seed), sample)
+    book = None
+    if journal is not None:
+        from .calibrate_journal import TrialJournal
+
+        header = {"scenario": description.name, "seed": int(seed), "names": list(names),
+                  "mode": "least squares" if sample is None else
+                  f"posterior {sample.n_walkers} {sample.n_steps} {sample.max_time}"}
+        book = TrialJournal(journal, header, resume)
+    kw = {"done": book.done, "on_record": book.add} if book else {}
     t0 = time.monotonic()
     if client is None:
         with open_client() as own:
-            records = run_trials(own, spec, n_trials, progress, in_flight)
+            records = run_trials(own, spec, n_trials, progress, in_flight, **kw)
     else:
-        records = run_trials(client, spec, n_trials, progress, in_flight)
+        records = run_trials(client, spec, n_trials, progress, in_flight, **kw)
     trials = pd.DataFrame(records, columns=list(run_trial_columns(names)))
     truth = _truth(description, names)
     units = {n: (SHARED.get(n) or EXTRA[n]).unit for n in names}
@@ -533,6 +560,8 @@ def add_calibrate_parser(subparsers):
     io.add_argument("--replace", action="store_true",
                     help="replace an earlier deepwell output in --out (foreign files are kept)")
     io.add_argument("--no-figures", action="store_true", help="skip the figure")
+    io.add_argument("--resume", action="store_true",
+                    help="continue an interrupted run from its journal OUT.trials.jsonl")
     mod = p.add_argument_group("fit model")
     mod.add_argument("--settings", help="fit settings (TOML); without an [effects] table "
                                         "the effects match how the scenario is simulated")
@@ -556,6 +585,7 @@ def add_calibrate_parser(subparsers):
 def run_calibrate(args):
     """Run ``deepwell calibrate``: calibrate, write into a staged folder, install."""
     from .calibrate_figure import write_calibration
+    from .calibrate_journal import journal_path
     from .errors import SettingsError
     from .outdir import discard_output, install_output, prepare_output
     from .settings import load_settings
@@ -571,12 +601,14 @@ def run_calibrate(args):
             log.info("%d trials of %s on %s", args.trials, description.name,
                      args.scheduler or "a local cluster")
             result = calibrate(description, args.trials, args.seed, settings, sample, client,
-                               progress=not args.quiet)
+                               progress=not args.quiet, journal=journal_path(args.out),
+                               resume=args.resume)
         write_calibration(result, tmp, figures=not args.no_figures)
         install_output(tmp, args.out, replace=args.replace)
     except BaseException:
         discard_output(tmp)
         raise
+    journal_path(args.out).unlink(missing_ok=True)
     for row in result.table.itertuples():
         log.info("%-8s coverage 68%%: %.3f (%s), 95%%: %.3f (%s), bias %+.2f sigma",
                  row.parameter, row.coverage68, row.verdict68, row.coverage95, row.verdict95,

@@ -216,3 +216,33 @@ def test_posterior_intervals_run_end_to_end(tiny):
     assert res.n_not_converged == 2
     t = res.trials
     assert (t.mass_lo95 < t.mass_lo68).all() and (t.mass_hi68 < t.mass_hi95).all()
+
+
+def test_a_resumed_calibration_equals_the_uninterrupted_one(tiny, command_run, tmp_path):
+    # A run killed after 4 finished trials (journal cut mid-line, as kill -9 can leave
+    # it) is continued with resume=True; the 6 records must equal the first 6 of the
+    # uninterrupted command run (trial i's seed does not depend on how it was run).
+    from deepwell.calibrate_journal import TrialJournal, journal_path
+
+    desc = scenario_description(tiny)
+    path = journal_path(tmp_path / "out")
+    with open_client(n_workers=1, processes=False) as client:
+        calibrate(desc, 4, seed=5, client=client, progress=False, journal=path)
+        lines = path.read_text().splitlines()
+        assert len(lines) == 5  # header + 4 trials
+        path.write_text("\n".join(lines) + "\n" + lines[-1][:40])  # a half-written line
+        with pytest.raises(Exception, match="--resume"):
+            calibrate(desc, 6, seed=5, client=client, progress=False, journal=path)
+        with pytest.raises(Exception, match="seed"):
+            calibrate(desc, 6, seed=6, client=client, progress=False, journal=path,
+                      resume=True)
+        assert sorted(TrialJournal(path, {}, resume=True).done) == [0, 1, 2, 3]
+        again = calibrate(desc, 6, seed=5, client=client, progress=False, journal=path,
+                          resume=True)
+    want = Table.read(command_run / "trials.ecsv").to_pandas().iloc[:6]
+    got = again.trials.copy()
+    for df in (want, got):
+        df["message"] = df["message"].fillna("").astype(str)
+    pd.testing.assert_frame_equal(got.reset_index(drop=True), want.reset_index(drop=True),
+                                  check_dtype=False, rtol=1e-12, atol=0)
+    assert not journal_path(command_run).exists()  # removed after a finished command run
