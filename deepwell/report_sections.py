@@ -275,6 +275,7 @@ def sampling_block(posterior):
     names = list(posterior.sampled_names)
     return json_safe({
         "statement": posterior.statement, "converged": posterior.converged,
+        "sampler": posterior.sampler, "diagnostics": list(posterior.diagnostics),
         "n_steps": list(posterior.n_steps), "burn": list(posterior.burn),
         "n_walkers": posterior.n_walkers, "n_ensembles": int(posterior.samples.shape[0]),
         "thin": posterior.thin, "n_samples": int(posterior.flat_samples.shape[0]),
@@ -314,11 +315,17 @@ def _fmt_post(posterior, label):
 
 def md_posterior(result, posterior, comp, figures):
     """The "Posterior" section of report.md (starts with the convergence statement)."""
+    if posterior.sampler == "nuts":
+        how = (f"{posterior.samples.shape[0]} independent No-U-Turn (Hamiltonian) chains, "
+               f"{', '.join(str(n) for n in posterior.n_steps)} draws after warm-up")
+    else:
+        how = (f"{posterior.samples.shape[0]} independent ensembles of {posterior.n_walkers} "
+               f"walkers, {', '.join(str(n) for n in posterior.n_steps)} steps")
     out = ["## Posterior", "", posterior.statement, "",
-           f"{posterior.samples.shape[0]} independent ensembles of {posterior.n_walkers} walkers, "
-           f"{', '.join(str(n) for n in posterior.n_steps)} steps (burn-in "
-           f"{', '.join(str(b) for b in posterior.burn)}), {posterior.flat_samples.shape[0]} "
-           "samples kept. Values are medians, errors run to the 16th and 84th percentiles.", "",
+           f"{how} (burn-in {', '.join(str(b) for b in posterior.burn)}), "
+           f"{posterior.flat_samples.shape[0]} samples kept. Values are medians, errors run to "
+           "the 16th and 84th percentiles.", "",
+           *[f"- {d}" for d in posterior.diagnostics], "",
            f"- Central mass: **{_fmt_post(posterior, 'mass')} M☉** (least squares "
            f"{result.value('mass'):.5g} M☉)",
            f"- Distance: **{_fmt_post(posterior, 'distance')} pc** (least squares "

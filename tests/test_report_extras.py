@@ -75,9 +75,11 @@ def newt_fit(obs):
 
 @pytest.fixture(scope="module")
 def posterior(newt_fit):
-    """A deliberately short run: must say NOT CONVERGED."""
+    """A deliberately short NUTS run (30 draws < 50 autocorrelation times of at
+    least one transition): must say NOT CONVERGED."""
     with pytest.warns(SamplingWarning, match="NOT CONVERGED"):
-        return sample_posterior(newt_fit, n_steps=200, progress=False, processes=1)
+        return sample_posterior(newt_fit, n_steps=30, n_warmup=20, n_ensembles=2,
+                                progress=False, processes=1)
 
 
 @pytest.fixture(scope="module")
@@ -120,7 +122,8 @@ def test_sampling_block_records_the_diagnostics(posterior, post_report):
     assert s["statement"] == posterior.statement
     assert s["converged"] is False
     assert s["n_walkers"] == posterior.n_walkers
-    assert s["n_steps"] == [200, 200]
+    assert s["n_steps"] == [30, 30]
+    assert s["sampler"] == "nuts" and len(s["diagnostics"]) >= 2
     assert set(s["tau"]) == set(posterior.sampled_names) == set(s["rhat"]) == set(s["ess"])
     assert s["implied_priors"] == list(posterior.implied_priors)
 

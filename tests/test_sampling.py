@@ -260,7 +260,8 @@ def test_short_run_on_sparse_demo_says_not_converged_and_summarises_correctly():
     fit = fit_joint(obs, parse_settings({"effects": {"romer": False, "redshift": "off",
                                                      "precession": False}}))
     with pytest.warns(SamplingWarning, match="NOT CONVERGED"):
-        post = sample_posterior(fit, n_steps=120, progress=False, processes=1)
+        post = sample_posterior(fit, n_steps=120, progress=False, processes=1,
+                                sampler="ensemble")
     assert post.statement.startswith("NOT CONVERGED")
     assert "n_steps=120" in post.statement
     assert not post.converged

@@ -27,7 +27,7 @@ import numpy as np
 from ..errors import DeepwellError
 
 __all__ = ["Checkpoint", "CheckpointError", "CheckpointMismatch", "save_checkpoint",
-           "load_checkpoint", "fingerprint"]
+           "load_checkpoint", "save_state", "load_state", "fingerprint"]
 
 _FORMAT = "deepwell-checkpoint-1"
 
@@ -63,25 +63,69 @@ def fingerprint(*parts):
 
 def save_checkpoint(path, ck):
     """Write ``ck`` to ``path`` atomically (new file, fsync, rename)."""
+    save_state(path, {k: getattr(ck, k) for k in ("chain", "log_prob", "coords",
+                                                   "last_log_prob", "accepted")},
+               {"step": int(ck.step), "elapsed": float(ck.elapsed),
+                "fingerprint": ck.fingerprint, "rng_state": ck.rng_state})
+
+
+def save_state(path, arrays, attrs, kind=_FORMAT):
+    """Write named arrays and JSON-able attributes to ``path`` atomically.
+
+    A complete new file is written beside ``path``, synced to disk and renamed
+    into place, so a reader only ever sees a whole file.
+    """
     import h5py
 
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
     with h5py.File(tmp, "w") as f:
-        f.create_dataset("chain", data=ck.chain)
-        f.create_dataset("log_prob", data=ck.log_prob)
-        f.create_dataset("coords", data=ck.coords)
-        f.create_dataset("last_log_prob", data=ck.last_log_prob)
-        f.create_dataset("accepted", data=ck.accepted)
-        f.attrs["format"] = _FORMAT
-        f.attrs["step"] = int(ck.step)
-        f.attrs["elapsed"] = float(ck.elapsed)
-        f.attrs["fingerprint"] = ck.fingerprint
-        f.attrs["rng_state"] = json.dumps(ck.rng_state, default=_json_default)
+        for name, value in arrays.items():
+            f.create_dataset(name, data=np.asarray(value))
+        f.attrs["format"] = kind
+        for name, value in attrs.items():
+            f.attrs[name] = value if isinstance(value, (int, float, str)) else \
+                json.dumps(value, default=_json_default)
     with open(tmp, "rb") as fh:
         os.fsync(fh.fileno())
     os.replace(tmp, path)
+
+
+def load_state(path, expected_fingerprint=None, kind=_FORMAT, json_attrs=("rng_state",)):
+    """Read a file written by :func:`save_state`: (arrays dict, attrs dict).
+
+    Raises
+    ------
+    CheckpointError
+        Missing or unreadable file, or another kind of file.
+    CheckpointMismatch
+        Its ``fingerprint`` attribute differs from ``expected_fingerprint``.
+    """
+    import h5py
+
+    path = Path(path)
+    if not path.is_file():
+        raise CheckpointError(f"no checkpoint to resume from: {path}")
+    try:
+        with h5py.File(path, "r") as f:
+            if f.attrs.get("format") != kind:
+                raise CheckpointError(f"{path}: not a deepwell checkpoint of this sampler")
+            fp = str(f.attrs["fingerprint"])
+            if expected_fingerprint is not None and fp != expected_fingerprint:
+                raise CheckpointMismatch(
+                    f"{path}: the checkpoint was written for different data, settings or "
+                    "sampler options (hash mismatch); refusing to resume. Start a new run "
+                    "or point to the matching checkpoint.")
+            arrays = {name: f[name][...] for name in f}
+            attrs = {}
+            for name, value in f.attrs.items():
+                value = value.item() if hasattr(value, "item") else value
+                attrs[name] = (json.loads(value, object_hook=_json_hook)
+                               if name in json_attrs else value)
+            return arrays, attrs
+    except OSError as exc:
+        raise CheckpointError(f"{path}: cannot read checkpoint ({exc})") from None
 
 
 def _json_default(obj):
@@ -108,25 +152,8 @@ def load_checkpoint(path, expected_fingerprint=None):
     CheckpointMismatch
         The file was written for other data, settings or sampler options.
     """
-    import h5py
-
-    path = Path(path)
-    if not path.is_file():
-        raise CheckpointError(f"no checkpoint to resume from: {path}")
-    try:
-        with h5py.File(path, "r") as f:
-            if f.attrs.get("format") != _FORMAT:
-                raise CheckpointError(f"{path}: not a deepwell checkpoint")
-            fp = str(f.attrs["fingerprint"])
-            if expected_fingerprint is not None and fp != expected_fingerprint:
-                raise CheckpointMismatch(
-                    f"{path}: the checkpoint was written for different data, settings or "
-                    "sampler options (hash mismatch); refusing to resume. Start a new run "
-                    "or point to the matching checkpoint.")
-            return Checkpoint(
-                chain=f["chain"][...], log_prob=f["log_prob"][...], coords=f["coords"][...],
-                last_log_prob=f["last_log_prob"][...], accepted=f["accepted"][...],
-                step=int(f.attrs["step"]), fingerprint=fp, elapsed=float(f.attrs["elapsed"]),
-                rng_state=json.loads(f.attrs["rng_state"], object_hook=_json_hook))
-    except OSError as exc:
-        raise CheckpointError(f"{path}: cannot read checkpoint ({exc})") from None
+    arrays, attrs = load_state(path, expected_fingerprint)
+    return Checkpoint(step=int(attrs["step"]), fingerprint=str(attrs["fingerprint"]),
+                      elapsed=float(attrs["elapsed"]), rng_state=attrs["rng_state"],
+                      **{k: arrays[k] for k in ("chain", "log_prob", "coords",
+                                                "last_log_prob", "accepted")})

@@ -26,6 +26,7 @@ from .convergence import (
     split_rhat,
 )
 from .core import default_moves, run_ensemble
+from .hamiltonian import ChainRun, run_chain
 from .target import LogPosterior, SamplingWarning
 
 __all__ = ["Summary", "PosteriorResult", "sample_posterior", "start_positions"]
@@ -88,6 +89,11 @@ class PosteriorResult:
     elapsed : float
         Wall time of the sampling in s.
     seed : int
+    sampler : str
+        "nuts" (independent No-U-Turn chains: one 'walker' per chain) or
+        "ensemble" (emcee ensembles).
+    diagnostics : tuple of str
+        Sampler-specific facts (step size, divergences, depth limits).
     """
 
     labels: tuple
@@ -111,6 +117,8 @@ class PosteriorResult:
     stop_reasons: tuple
     elapsed: float
     seed: int
+    sampler: str = "ensemble"
+    diagnostics: tuple = ()
 
     @property
     def flat_samples(self):
@@ -186,13 +194,14 @@ _JOBS = {}
 
 
 def _run_job(k):
-    job = _JOBS[k]
-    return run_ensemble(**job)
+    fn, job = _JOBS[k]
+    return fn(**job)
 
 
 def _run_all(jobs, processes):
+    """Run ``(function, kwargs)`` jobs, in forked processes when ``processes`` > 1."""
     if processes <= 1 or len(jobs) == 1:
-        return [run_ensemble(**job) for job in jobs]
+        return [fn(**job) for fn, job in jobs]
     _JOBS.clear()
     _JOBS.update(enumerate(jobs))
     ctx = multiprocessing.get_context("fork")
@@ -211,8 +220,13 @@ def _moves(moves):
     return list(moves)
 
 
-def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens):
+def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens, what="ensemble"):
     problems = []
+    for k, run in enumerate(runs):
+        if getattr(run, "n_divergent", 0):
+            problems.append(f"{what} {k}: {run.n_divergent} divergent transitions after "
+                            "warm-up (the sampler could not follow the posterior's curvature "
+                            "there; regions may be under-explored)")
     for k, (run, b) in enumerate(zip(runs, burns, strict=False)):
         kept = run.n_steps - b
         tmax = np.max(tau)
@@ -226,24 +240,24 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens):
             else:
                 why = "the rule was met at the last check but not on the final estimate"
             if np.isfinite(tmax):
-                problems.append(f"ensemble {k}: {kept} steps kept after burn-in = "
+                problems.append(f"{what} {k}: {kept} steps kept after burn-in = "
                                 f"{kept / tmax:.1f} autocorrelation times (need {RUN_TAUS}); "
                                 f"{why}")
             else:
-                problems.append(f"ensemble {k}: the autocorrelation time cannot be measured "
+                problems.append(f"{what} {k}: the autocorrelation time cannot be measured "
                                 f"(chain too short or walkers that never moved); {why}")
     bad = np.flatnonzero(~(rhat < RHAT_MAX))
     if bad.size:
         worst = bad[np.argmax(np.nan_to_num(rhat[bad], nan=np.inf))]
-        problems.append(f"R-hat across {n_ens} independent ensembles is {rhat[worst]:.3f} for "
+        problems.append(f"R-hat across {n_ens} independent {what}s is {rhat[worst]:.3f} for "
                         f"{names[worst]} (need < {RHAT_MAX}; {bad.size} parameter(s) fail)")
     if n_ens < 2:
-        problems.append("only one ensemble: R-hat across independent ensembles is unavailable")
+        problems.append(f"only one {what}: R-hat across independent {what}s is unavailable")
     ok_tau = np.where(np.isfinite(tau), tau, np.inf)
     worst_tau = names[int(np.argmax(ok_tau))]
-    rule = (f"rule: at least {RUN_TAUS} autocorrelation times per ensemble after discarding "
-            f"{BURN_TAUS} as burn-in, and split R-hat < {RHAT_MAX} across >= 2 ensembles")
-    tau_text = (f"{np.max(ok_tau):.0f} steps" if np.isfinite(np.max(ok_tau))
+    rule = (f"rule: at least {RUN_TAUS} autocorrelation times per {what} after discarding "
+            f"{BURN_TAUS} as burn-in, and split R-hat < {RHAT_MAX} across >= 2 {what}s")
+    tau_text = (f"{np.max(ok_tau):.3g} steps" if np.isfinite(np.max(ok_tau))
                 else "not measurable")
     rhat_max = np.max(np.where(np.isfinite(rhat), rhat, np.inf))
     facts = (f"largest autocorrelation time {tau_text} ({worst_tau}); "
@@ -255,48 +269,60 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens):
 
 
 def sample_posterior(result, n_walkers=None, n_steps=None, seed=0, checkpoint=None,
-                     resume=False, progress=True, max_time=None, *, n_ensembles=2,
-                     processes=None, marginalise=True, moves="de", thin=None,
-                     checkpoint_every=500, check_every=500, max_steps=100_000,
-                     max_draws=20_000):
-    """Sample the posterior of a joint fit with independent emcee ensembles.
+                     resume=False, progress=True, max_time=None, *, n_ensembles=None,
+                     processes=None, marginalise=True, sampler="nuts", moves="de", thin=None,
+                     n_warmup=None, max_depth=8, adapt_metric=True, checkpoint_every=None,
+                     check_every=None, max_steps=None, max_draws=20_000):
+    """Sample the posterior of a joint fit with independent chains or ensembles.
 
     Parameters
     ----------
     result : deepwell.results.FitResult
         The least-squares fit: model, settings and starting point.
     n_walkers : int, optional
-        Walkers per ensemble (default 2 n_dim + 2; at least 2 n_dim).
+        ``sampler="ensemble"`` only: walkers per ensemble (default
+        2 n_dim + 2; at least 2 n_dim).
     n_steps : int, optional
-        Steps per ensemble.  None: run until the convergence rule holds
-        (checked every ``check_every`` steps), at most ``max_steps``.
+        Kept draws per chain (NUTS) or steps per ensemble.  None: run until
+        the convergence rule holds, at most ``max_steps``.
     seed : int
-        Seed of the numpy SeedSequence; ensemble k uses child k.  Nothing is
-        seeded globally.
+        Seed of the numpy SeedSequence; chain/ensemble k uses child k.
+        Nothing is seeded globally.
     checkpoint : path, optional
-        Folder for one HDF5 checkpoint per ensemble (``ensemble_<k>.h5``),
-        written every ``checkpoint_every`` steps.
+        Folder for one HDF5 checkpoint per chain (``chain_<k>.h5``) or
+        ensemble (``ensemble_<k>.h5``).
     resume : bool
         Continue the runs in ``checkpoint`` exactly where they stopped;
         refused (CheckpointMismatch) if data, settings or options differ.
     progress : bool
-        Show a progress bar per ensemble.
+        Show a progress bar per chain.
     max_time : float, optional
-        Wall-time budget per ensemble in s.
-    n_ensembles : int
-        Independent ensembles (>= 2 for R-hat).
+        Wall-time budget per chain in s.
+    n_ensembles : int, optional
+        Independent chains (default 4) or ensembles (default 2); >= 2 for R-hat.
     processes : int, optional
-        Ensembles run in parallel (default: min(n_ensembles, CPU count)).
+        Chains run in parallel (default: min(n_ensembles, CPU count)).
     marginalise : bool or sequence of str
         Integrate the frame terms out analytically (see
         :mod:`deepwell.sampling.target`).
+    sampler : {"nuts", "ensemble"}
+        "nuts": No-U-Turn Hamiltonian chains in coordinates whitened by the
+        least-squares covariance, then by the warm-up covariance
+        (:mod:`deepwell.sampling.hamiltonian`); "ensemble": emcee ensembles
+        (:mod:`deepwell.sampling.core`).
     moves : {"de", "stretch"} or list of (move, weight)
-        "de": differential evolution 80% + snooker 20%; "stretch": emcee's
-        affine-invariant stretch move.
+        Ensemble moves: "de" differential evolution 80% + snooker 20%;
+        "stretch" emcee's affine-invariant stretch move.
     thin : int, optional
-        Store every ``thin``-th step (default max(1, n_dim // 8)).
+        Ensemble only: store every ``thin``-th step (default max(1, n_dim // 8)).
+    n_warmup : int, optional
+        NUTS warm-up transitions per chain (default 300).
+    max_depth : int
+        NUTS tree depth limit.
+    adapt_metric : bool
+        NUTS: use the warm-up covariance as metric.
     max_draws : int
-        Keep at most about this many draws per ensemble in the result.
+        Keep at most about this many draws per chain in the result.
 
     Returns
     -------
@@ -309,39 +335,79 @@ def sample_posterior(result, n_walkers=None, n_steps=None, seed=0, checkpoint=No
     quantities, -inf outside the bounds; the implied priors are listed in
     ``PosteriorResult.implied_priors``.
     """
+    if sampler not in ("nuts", "ensemble"):
+        raise ValueError(f"sampler must be 'nuts' or 'ensemble', not {sampler!r}")
     t0 = time.monotonic()
     target = LogPosterior(result, marginalise=marginalise)
     ndim = len(target.sampled)
-    n_walkers = int(n_walkers or 2 * ndim + 2)
-    n_walkers += n_walkers % 2
-    if n_walkers < 2 * ndim:
-        raise ValueError(f"n_walkers={n_walkers} is below twice the {ndim} sampled parameters")
-    thin = int(thin or max(1, ndim // 8))
-    mv = _moves(moves)
+    nuts = sampler == "nuts"
+    n_ensembles = int(n_ensembles or (4 if nuts else 2))
     processes = processes or min(n_ensembles, os.cpu_count() or 1)
+    if nuts:
+        n_walkers, thin, mv = 1, 1, None
+    else:
+        n_walkers = int(n_walkers or 2 * ndim + 2)
+        n_walkers += n_walkers % 2
+        if n_walkers < 2 * ndim:
+            raise ValueError(f"n_walkers={n_walkers} is below twice the {ndim} sampled "
+                             "parameters")
+        thin = int(thin or max(1, ndim // 8))
+        mv = _moves(moves)
     base_hash = fingerprint(
         _data_hash(result), result.settings.raw, result.settings.reference_epoch,
         list(result.model.stars), target.names, [target.model.layout.names()[i]
                                                  for i in target.marginal],
         target.base[~np.isin(np.arange(len(target.base)), target.sampled)].tolist(),
-        n_walkers, seed)
+        n_walkers, seed, sampler)
+    centre = target.base[target.sampled]
+    cov = target.start_cov(result.internal_cov)
     jobs = []
     for k in range(n_ensembles):
         rng = np.random.Generator(np.random.PCG64(np.random.SeedSequence(seed, spawn_key=(k,))))
         p0 = start_positions(target, result, n_walkers, rng)
-        jobs.append(dict(
-            log_prob=target, p0=p0, rng=rng, n_steps=n_steps, moves=mv, thin=thin,
-            checkpoint=None if checkpoint is None else Path(checkpoint) / f"ensemble_{k}.h5",
-            fingerprint=f"{base_hash}|ensemble={k}", resume=resume,
-            checkpoint_every=checkpoint_every, max_time=max_time, progress=progress,
-            stop_rule=_stop_rule, check_every=check_every, max_steps=max_steps,
-            desc=f"ensemble {k}", position=k))
+        common = dict(
+            rng=rng, fingerprint=f"{base_hash}|chain={k}", resume=resume, max_time=max_time,
+            progress=progress, stop_rule=_stop_rule, position=k)
+        if nuts:
+            ck = None if checkpoint is None else Path(checkpoint) / f"chain_{k}.h5"
+            jobs.append((run_chain, dict(
+                target=target, centre=centre, cov=cov, theta0=p0[0], n_warmup=n_warmup or 300,
+                n_draws=n_steps, checkpoint=ck, checkpoint_every=checkpoint_every or 50,
+                check_every=check_every or 50, max_draws=max_steps or max_draws,
+                max_depth=max_depth, adapt_metric=adapt_metric, desc=f"chain {k}", **common)))
+        else:
+            ck = None if checkpoint is None else Path(checkpoint) / f"ensemble_{k}.h5"
+            jobs.append((run_ensemble, dict(
+                log_prob=target, p0=p0, n_steps=n_steps, moves=mv, thin=thin, checkpoint=ck,
+                checkpoint_every=checkpoint_every or 500, check_every=check_every or 500,
+                max_steps=max_steps or 100_000, desc=f"ensemble {k}", **common)))
     runs = _run_all(jobs, processes)
     return _assemble(result, target, runs, seed, n_steps, max_time, max_draws,
-                     time.monotonic() - t0)
+                     time.monotonic() - t0, sampler)
 
 
-def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed):
+def _diagnostics(runs):
+    """Sampler facts for the report (NUTS: step sizes, divergences, depth limits)."""
+    if not isinstance(runs[0], ChainRun):
+        acc = np.concatenate([r.acceptance for r in runs])
+        return (f"emcee ensembles; mean acceptance fraction {np.mean(acc):.3f}",)
+    out = []
+    for k, r in enumerate(runs):
+        out.append(f"chain {k}: {r.n_warmup} warm-up + {r.n_steps} kept transitions, step "
+                   f"size {r.step_size:.3g}, mean acceptance statistic "
+                   f"{float(np.mean(r.accept_stat)) if r.n_steps else float('nan'):.3f}, mean "
+                   f"{float(np.mean(r.n_leapfrog)) if r.n_steps else float('nan'):.1f} "
+                   f"leapfrog steps, {r.n_gradients} gradient evaluations, "
+                   f"{r.n_divergent} divergent, {r.n_max_depth} at the depth limit")
+    hit = sum(r.n_max_depth for r in runs)
+    if hit:
+        out.append(f"{hit} transitions stopped at the tree-depth limit "
+                   f"({runs[0].max_depth}): the chains explore slowly there")
+    return tuple(out)
+
+
+def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed,
+              sampler="ensemble"):
     thin = runs[0].thin
     burns = [burn_in(r.chain, thin) for r in runs]
     kept = [r.chain[b:] for r, b in zip(runs, burns, strict=False)]
@@ -349,7 +415,8 @@ def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed)
     tau = np.max(taus, axis=0)  # nan/inf (unmeasurable) propagate: conservative
     rhat = split_rhat(kept) if len(runs) > 1 else np.full(len(target.names), np.nan)
     converged, text = _statement(runs, [b * thin for b in burns], tau, rhat, target.names,
-                                 n_steps, max_time, len(runs))
+                                 n_steps, max_time, len(runs),
+                                 "chain" if sampler == "nuts" else "ensemble")
     if not converged:
         warnings.warn(SamplingWarning(text), stacklevel=3)
     n = min(c.shape[0] for c in kept)
@@ -370,4 +437,5 @@ def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed)
         thin=thin * step, n_walkers=runs[0].chain.shape[1], converged=converged,
         statement=text, implied_priors=target.implied_priors(),
         marginalised=tuple(lay.names()[i] for i in target.marginal),
-        stop_reasons=tuple(r.stop_reason for r in runs), elapsed=elapsed, seed=seed)
+        stop_reasons=tuple(r.stop_reason for r in runs), elapsed=elapsed, seed=seed,
+        sampler=sampler, diagnostics=_diagnostics(runs))
