@@ -58,12 +58,20 @@ def _add_fit(sub):
     post = p.add_argument_group("posterior sampling")
     post.add_argument("--sample", action="store_true",
                       help="sample the joint posterior after the fit (slow: minutes to hours)")
-    post.add_argument("--walkers", type=int, help="walkers per ensemble")
+    post.add_argument("--sampler", choices=("nuts", "ensemble"), default="nuts",
+                      help="nuts: No-U-Turn Hamiltonian chains (default); ensemble: emcee "
+                           "differential-evolution ensembles")
     post.add_argument("--steps", type=int,
-                      help="steps per ensemble (default: run until the convergence rule holds)")
+                      help="kept draws per chain, or steps per ensemble (default: run until "
+                           "the convergence rule holds)")
+    post.add_argument("--warmup", type=int, help="warm-up transitions per NUTS chain "
+                                                 "(default 300)")
+    post.add_argument("--chains", "--ensembles", dest="chains", type=int,
+                      help="independent chains (default 4) or ensembles (default 2); R-hat "
+                           "is computed across them")
+    post.add_argument("--walkers", type=int, help="walkers per ensemble (--sampler ensemble)")
     post.add_argument("--max-time", type=float, metavar="SECONDS",
-                      help="wall-time budget per ensemble; a run cut short says NOT CONVERGED")
-    post.add_argument("--ensembles", type=int, default=2, help="independent ensembles (R-hat)")
+                      help="wall-time budget per chain; a run cut short says NOT CONVERGED")
     post.add_argument("--seed", type=int, default=0, help="random seed of the sampler")
     post.add_argument("--resume", action="store_true",
                       help="continue the sampling saved in REPORT_DIR.chains/")
@@ -204,7 +212,8 @@ def _sample(result, args):
     log.info("sampling the posterior (checkpoints in %s; resume with --resume)", chains)
     post = sample_posterior(result, n_walkers=args.walkers, n_steps=args.steps, seed=args.seed,
                             checkpoint=chains, resume=args.resume, progress=not args.quiet,
-                            max_time=args.max_time, n_ensembles=args.ensembles)
+                            max_time=args.max_time, n_ensembles=args.chains,
+                            sampler=args.sampler, n_warmup=args.warmup)
     log.info("%s", post.statement)
     return post
 

@@ -7,15 +7,17 @@ Coordinates
     well-measured data set is close to a unit Gaussian, which is what lets a
     Hamiltonian sampler with a unit mass matrix take large steps.
 
-Phase coordinate
-    Each star's pericentre epoch is sampled as its orbital phase at the mean
-    epoch t_k of its positions, phi = (t_k - t_peri) / P, instead of t_peri.
-    A partly covered orbit fixes where the star is at t_k much better than
-    when it last passed pericentre, so (P, phi) are far less curved than
-    (P, t_peri) (common practice in orbit fitting).  The density in u =
-    (..., P, phi, ...) carries the Jacobian |dt_peri/dphi| = P, so the
-    posterior of the reported quantities, and their uniform prior in t_peri,
-    are unchanged.
+Longitude coordinate
+    Each star's pericentre epoch is sampled as its mean argument of latitude
+    at the mean epoch t_k of its positions, lambda = 2 pi (t_k - t_peri) / P
+    + omega (omega = atan2(sqrt(e) sin w, sqrt(e) cos w)), instead of t_peri.
+    A partly covered orbit fixes where the star is along its orbit at t_k
+    much better than when it last passed pericentre, and for a nearly
+    circular orbit omega and the phase are degenerate while their sum is not
+    (mean longitude, common practice in orbit fitting).  The map is triangular
+    with |dt_peri/dlambda| = P / 2 pi, which the density in the new
+    coordinates carries, so the posterior of the reported quantities and
+    their uniform prior in t_peri are unchanged.
 
 Gradient
     The log-posterior is -1/2 |M r(theta)|^2 + const + log J(theta), r the
@@ -25,10 +27,10 @@ Gradient
 
         d logp / d theta = -(dr/dtheta)^T (M r) + d log J / d theta
 
-    dr/dtheta comes from central differences with the column grouping of
-    :func:`deepwell.fit.numerical_jacobian` (element j of every star at once),
-    so one gradient costs one vectorised model call of 1 + 2 (n_shared + 6)
-    rows, whatever the number of stars.  The gradient is therefore an
+    dr/dtheta comes from forward differences (step 1e-6 standard deviations)
+    with the column grouping of :func:`deepwell.fit.numerical_jacobian`
+    (element j of every star at once), so one gradient costs one vectorised
+    model call of 1 + n_shared + 6 rows, whatever the number of stars.  The gradient is therefore an
     approximation, but a deterministic function of z: the leapfrog map stays
     reversible and volume-preserving and the Metropolis correction uses the
     exact log-posterior, so the sampled distribution is exact (Neal 2011,
@@ -54,29 +56,32 @@ class WhitenedTarget:
     cov : ndarray, shape (n, n)
         Covariance of theta defining the whitening (positive definite).
     rel_step : float
-        Central-difference step in units of each parameter's standard
+        Forward-difference step in units of each parameter's standard
         deviation under ``cov``.
     cov_u : ndarray, optional
         Covariance in the phase coordinates u instead (replaces ``cov`` for
         the whitening; used after the warm-up adapts the metric).
     """
 
-    def __init__(self, target, centre, cov, rel_step=1e-4, cov_u=None):
+    def __init__(self, target, centre, cov, rel_step=1e-6, cov_u=None):
         self.target = target
         self.n = len(centre)
         model = target.model
         lay = model.layout
         n_sh, n_el = lay.n_shared, len(STAR_INTERNAL)
         col = {i: c for c, i in enumerate(target.sampled)}
-        self._per, self._tp, self._tref = [], [], []
+        self._per, self._tp, self._tref, self._c, self._s = [], [], [], [], []
         for k in range(len(model.stars)):
             i_p, i_t = n_sh + k * n_el, n_sh + k * n_el + n_el - 1
             t = model.pos.t[model.pos.star == k]
-            if i_p in col and i_t in col and t.size:
+            if all(i in col for i in (i_p, i_t, i_p + 1, i_p + 2)) and t.size:
                 self._per.append(col[i_p])
                 self._tp.append(col[i_t])
+                self._c.append(col[i_p + 1])
+                self._s.append(col[i_p + 2])
                 self._tref.append(float(np.mean(t)))
         self._per, self._tp = np.array(self._per, np.intp), np.array(self._tp, np.intp)
+        self._c, self._s = np.array(self._c, np.intp), np.array(self._s, np.intp)
         self._tref = np.array(self._tref, float)
         cov = 0.5 * (np.asarray(cov, float) + np.asarray(cov, float).T)
         self.steps = rel_step * np.sqrt(np.diag(cov))  # in theta
@@ -101,33 +106,42 @@ class WhitenedTarget:
         self.rows_of = {k: np.flatnonzero(self.owner == k) for k in range(len(model.stars))}
 
     # ------------------------------------------------------------ coordinates
+    def _omega(self, x):
+        return np.arctan2(x[..., self._s], x[..., self._c])
+
     def to_u(self, theta):
-        """Phase coordinates of sampled points (t_peri replaced by phi)."""
+        """Phase coordinates of sampled points (t_peri replaced by lambda)."""
         u = np.array(theta, float, copy=True)
-        u[..., self._tp] = (self._tref - u[..., self._tp]) / u[..., self._per]
+        u[..., self._tp] = (2.0 * np.pi * (self._tref - u[..., self._tp]) / u[..., self._per]
+                            + self._omega(u))
         return u
 
     def to_theta(self, u):
         """Sampled coordinates of phase-coordinate points."""
         th = np.array(u, float, copy=True)
-        th[..., self._tp] = self._tref - u[..., self._tp] * u[..., self._per]
+        th[..., self._tp] = self._tref - u[..., self._per] * (
+            u[..., self._tp] - self._omega(u)) / (2.0 * np.pi)
         return th
 
     def _jac(self, u):
         """d theta / d u at one point."""
         jac = np.eye(self.n)
-        jac[self._tp, self._tp] = -u[self._per]
-        jac[self._tp, self._per] = -u[self._tp]
+        per, tp, c, s = u[self._per], u[self._tp], u[self._c], u[self._s]
+        rho2 = c * c + s * s
+        jac[self._tp, self._tp] = -per / (2.0 * np.pi)
+        jac[self._tp, self._per] = -(tp - self._omega(u)) / (2.0 * np.pi)
+        jac[self._tp, self._s] = per / (2.0 * np.pi) * c / rho2
+        jac[self._tp, self._c] = -per / (2.0 * np.pi) * s / rho2
         return jac
 
     def log_det(self, u):
-        """log |d theta / d u| = sum of log P over the rephased stars."""
-        return np.sum(np.log(np.abs(np.asarray(u)[..., self._per])), axis=-1)
+        """log |d theta / d u| = sum of log(P / 2 pi) over the rephased stars."""
+        return np.sum(np.log(np.abs(np.asarray(u)[..., self._per]) / (2.0 * np.pi)), axis=-1)
 
     @property
     def n_rows(self):
         """Model rows evaluated per gradient."""
-        return 1 + 2 * len(self.groups)
+        return 1 + len(self.groups)
 
     def u(self, z):
         return self.centre + np.asarray(z, float) @ self.chol.T
@@ -158,8 +172,7 @@ class WhitenedTarget:
         theta = self.to_theta(u)
         trial = np.repeat(theta[None], self.n_rows, axis=0)
         for g, (cols, _) in enumerate(self.groups):
-            trial[1 + 2 * g, cols] += self.steps[cols]
-            trial[2 + 2 * g, cols] -= self.steps[cols]
+            trial[1 + g, cols] += self.steps[cols]
         vec = t.full_vectors(trial)
         if not t.inside(vec[:1])[0]:
             return -np.inf, np.full(self.n, np.nan)
@@ -172,10 +185,10 @@ class WhitenedTarget:
         lp = -0.5 * float(r0 @ r0) + t.log_norm + float(self.log_det(u))
         grad = np.empty(self.n)
         for g, (cols, stars) in enumerate(self.groups):
-            diff = r[1 + 2 * g] - r[2 + 2 * g]
+            diff = r[1 + g] - r[0]
             for c, k in zip(cols, stars, strict=True):
                 rows = slice(None) if k < 0 else self.rows_of[k]
-                grad[c] = -float(diff[rows] @ r0[rows]) / (2.0 * self.steps[c])
+                grad[c] = -float(diff[rows] @ r0[rows]) / self.steps[c]
         if t._jacobian_terms:
             lp += float(t._jacobian(vec[:1])[0])
             grad += self._jacobian_gradient(theta)

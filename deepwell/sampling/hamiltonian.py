@@ -3,10 +3,11 @@
 Warm-up of ``n_warmup`` transitions (none of them kept)
     * all of it: the step size is adapted by dual averaging
       (:class:`deepwell.sampling.nuts.DualAveraging`);
-    * transitions 15%-75%: the draws are collected; at 75% their covariance,
-      shrunk towards the least-squares covariance with the weight of
-      ``n_dim`` pseudo-draws, becomes the new whitening (metric) and the
-      step-size adaptation starts again from the current step size.
+    * two windows, transitions 10%-35% and 35%-75%: at the end of each the
+      window's draws give a new whitening (metric, :func:`adapted_cov`:
+      the previous one rescaled to the draws' widths, blended with their
+      covariance) and the step-size adaptation starts again from the
+      current step size.
 
 Draws
     After the warm-up the step size is frozen at its averaged value and each
@@ -89,14 +90,27 @@ class ChainRun:
         return int(np.sum(self.n_leapfrog >= 2 ** self.max_depth - 1))
 
 
-def adapted_cov(draws, prior_cov):
-    """Warm-up covariance shrunk towards ``prior_cov`` with weight n_dim draws."""
+def adapted_cov(draws, prior_cov, max_ratio=20.0):
+    """Metric from warm-up draws: ``prior_cov`` rescaled to the draws' widths,
+    then shrunk towards the draws' own covariance with weight n / (n + n_dim).
+
+    The least-squares covariance has the right correlations for a
+    well-measured orbit but can be too narrow by large factors for a partly
+    covered one; rescaling each coordinate to its warm-up standard deviation
+    (ratios clipped to [1/max_ratio, max_ratio]) corrects the widths with only
+    n_dim numbers estimated, and the dense part adds correlations where the
+    draws are many enough to show them.
+    """
     x = np.asarray(draws, float)
     n, d = x.shape
     if n < 2:
         return prior_cov
     c = np.cov(x, rowvar=False)
-    return (n * c + d * prior_cov) / (n + d)
+    ratio = np.sqrt(np.clip(np.diag(c), 1e-300, None) / np.diag(prior_cov))
+    ratio = np.clip(ratio, 1.0 / max_ratio, max_ratio)
+    scaled = prior_cov * np.outer(ratio, ratio)
+    w = n / (n + 5.0 * d)
+    return w * c + (1.0 - w) * scaled
 
 
 def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
@@ -136,7 +150,8 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
     fingerprint = (f"{fingerprint}|nuts|warmup={n_warmup}|depth={max_depth}|"
                    f"metric={adapt_metric}")
     prior_cov = np.asarray(cov, float)
-    win_lo, win_hi = int(0.15 * n_warmup), int(0.75 * n_warmup)
+    windows = [(int(0.1 * n_warmup), int(0.35 * n_warmup)),
+               (int(0.35 * n_warmup), int(0.75 * n_warmup))]
     if resume:
         if checkpoint is None:
             raise ValueError("resume=True needs a checkpoint file")
@@ -161,7 +176,6 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
         it, elapsed0, n_grad = 0, 0.0, 0
         window, draws, lps, stats = [], [], [], []
 
-    first_cov_u = WhitenedTarget(target, centre, prior_cov).cov
     target_draws = n_draws if n_draws is not None else max_draws
     bar = make_progress(progress, total=n_warmup + target_draws, initial=it, desc=desc,
                         position=position)
@@ -193,12 +207,12 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
             it += 1
             if it <= n_warmup:
                 eps = da.update(tr.accept_stat)
-                if adapt_metric and win_lo < it <= win_hi:
+                if adapt_metric and any(lo < it <= hi for lo, hi in windows):
                     window.append(wt.u(z))
-                if adapt_metric and it == win_hi and len(window) > 1:
+                if adapt_metric and any(it == hi for _, hi in windows) and len(window) > 1:
                     theta = wt.theta(z)
                     wt = WhitenedTarget(target, centre, prior_cov,
-                                        cov_u=adapted_cov(window, first_cov_u))
+                                        cov_u=adapted_cov(window, wt.cov))
                     z = wt.whiten(theta)
                     lp, grad = wt(z)
                     eps = initial_step_size(wt, z, lp, grad, rng, eps)
