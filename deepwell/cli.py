@@ -238,6 +238,9 @@ def main(argv=None):
     logging.basicConfig(format="deepwell: %(message)s", stream=sys.stderr, force=True,
                         level=logging.WARNING if getattr(args, "quiet", False) else logging.INFO)
     logging.captureWarnings(True)
+    shown = warnings.formatwarning
+    warnings.formatwarning = lambda message, category, *rest, **kw: \
+        f"{category.__name__}: {message}"  # one line, no source line
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("default")
@@ -250,6 +253,7 @@ def main(argv=None):
         return 130
     finally:
         logging.captureWarnings(False)
+        warnings.formatwarning = shown
 
 
 if __name__ == "__main__":
