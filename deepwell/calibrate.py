@@ -144,6 +144,9 @@ class SampleOptions:
     n_walkers: int | None = None
     n_steps: int | None = None
     max_time: float | None = None
+    sampler: str = "nuts"
+    n_warmup: int | None = None
+    n_chains: int | None = None
 
 
 @dataclass(frozen=True)
@@ -245,7 +248,8 @@ def _intervals(spec, result, index):
     opt = spec.sample
     post = sample_posterior(result, n_walkers=opt.n_walkers, n_steps=opt.n_steps,
                             seed=trial_seeds(spec.seed, index)[1], progress=False,
-                            processes=1, max_time=opt.max_time)
+                            processes=1, max_time=opt.max_time, sampler=opt.sampler,
+                            n_warmup=opt.n_warmup, n_ensembles=opt.n_chains)
     out = {}
     for n in names:
         draws = post.samples[..., post.labels.index(n)].ravel()
@@ -519,8 +523,7 @@ def calibrate(description, n_trials, seed=0, settings=None, sample=None, client=
         from .calibrate_journal import TrialJournal
 
         header = {"scenario": description.name, "seed": int(seed), "names": list(names),
-                  "mode": "least squares" if sample is None else
-                  f"posterior {sample.n_walkers} {sample.n_steps} {sample.max_time}"}
+                  "mode": "least squares" if sample is None else f"posterior {sample}"}
         book = TrialJournal(journal, header, resume)
     kw = {"done": book.done, "on_record": book.add} if book else {}
     t0 = time.monotonic()
@@ -567,9 +570,13 @@ def add_calibrate_parser(subparsers):
                                         "the effects match how the scenario is simulated")
     mod.add_argument("--sample", action="store_true",
                      help="check posterior intervals (slow: minutes per trial)")
-    mod.add_argument("--walkers", type=int, help="walkers per ensemble with --sample")
-    mod.add_argument("--steps", type=int, help="steps per ensemble with --sample "
-                                               "(default: until converged)")
+    mod.add_argument("--sampler", choices=("nuts", "ensemble"), default="nuts",
+                     help="posterior sampler with --sample (default nuts)")
+    mod.add_argument("--walkers", type=int, help="walkers per ensemble (--sampler ensemble)")
+    mod.add_argument("--steps", type=int, help="draws per chain or steps per ensemble with "
+                                               "--sample (default: until converged)")
+    mod.add_argument("--warmup", type=int, help="warm-up transitions per NUTS chain")
+    mod.add_argument("--chains", type=int, help="independent chains or ensembles per trial")
     mod.add_argument("--max-time", type=float, help="sampling time limit per trial, s")
     run = p.add_argument_group("computing (Dask)")
     run.add_argument("--scheduler", metavar="ADDRESS",
@@ -594,7 +601,8 @@ def run_calibrate(args):
         raise SettingsError(f"--trials must be at least 1, got {args.trials}")
     description = scenario_description(args.scenario)
     settings = load_settings(args.settings) if args.settings else None
-    sample = SampleOptions(args.walkers, args.steps, args.max_time) if args.sample else None
+    sample = (SampleOptions(args.walkers, args.steps, args.max_time, args.sampler, args.warmup,
+                            args.chains) if args.sample else None)
     tmp = prepare_output(args.out, replace=args.replace)
     try:
         with open_client(args.scheduler, args.workers, not args.in_process) as client:

@@ -203,14 +203,15 @@ def test_a_wrong_fit_model_fails_the_check(tiny):
 
 
 @pytest.mark.slow
-# 60 steps are deliberately too few to converge; the sampler says so with a
+# 40 NUTS draws are deliberately too few to converge; the sampler says so with a
 # SamplingWarning (made an error by the test settings) and the trial is then
 # recorded as "not converged", which is what this test checks.
 @pytest.mark.filterwarnings("ignore::deepwell.sampling.SamplingWarning")
 def test_posterior_intervals_run_end_to_end(tiny):
     desc = scenario_description(tiny)
     with open_client(n_workers=2, processes=False) as client:
-        res = calibrate(desc, 2, seed=3, sample=SampleOptions(n_walkers=40, n_steps=60),
+        res = calibrate(desc, 2, seed=3, sample=SampleOptions(n_steps=40, n_warmup=30,
+                                                              n_chains=2),
                         client=client, progress=False)
     assert res.mode == "posterior" and res.n_failed == 0
     assert res.n_not_converged == 2

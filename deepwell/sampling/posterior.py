@@ -32,6 +32,8 @@ from .target import LogPosterior, SamplingWarning
 __all__ = ["Summary", "PosteriorResult", "sample_posterior", "start_positions"]
 
 _ANGLES = ("node", "peri_arg")
+#: Fewest kept draws per NUTS chain for a run to count as converged.
+MIN_CHAIN_DRAWS = 100
 
 
 @dataclass(frozen=True)
@@ -230,6 +232,10 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens, what="en
     for k, (run, b) in enumerate(zip(runs, burns, strict=False)):
         kept = run.n_steps - b
         tmax = np.max(tau)
+        if what == "chain" and kept < MIN_CHAIN_DRAWS:
+            problems.append(f"chain {k}: only {kept} draws kept after burn-in (need at least "
+                            f"{MIN_CHAIN_DRAWS} to estimate autocorrelation times and "
+                            "percentiles reliably)")
         if not np.isfinite(tmax) or kept < RUN_TAUS * tmax:
             if run.stop_reason == "max_time":
                 why = f"the time budget (max_time={max_time} s) ended the run"
