@@ -292,3 +292,19 @@ def test_prior_on_a_carries_the_jacobian_of_the_sampled_period():
     expected = -0.5 * ((a - mean) / sigma) ** 2 + np.log(2.0 * a / (3.0 * period))
     assert lay.names() == with_prior.model.layout.names()
     assert float(t1(theta) - t0(theta)) == pytest.approx(expected, rel=1e-9)
+
+
+def test_a_time_budget_that_ends_in_the_warm_up_is_a_clear_error():
+    """No draws, no summary: a run whose --max-time ends during the NUTS warm-up
+    must raise one clear error (a user-facing DeepwellError), not a traceback
+    from the diagnostics (common practice: never summarise an empty chain)."""
+    from deepwell.errors import DeepwellError
+    from deepwell.sampling import SamplingError
+
+    obs = read_observations(SCENARIOS / "sparse")
+    fit = fit_joint(obs, parse_settings({"effects": {"romer": False, "redshift": "off",
+                                                     "precession": False}}))
+    with pytest.raises(SamplingError, match="fewer than 4 kept draws") as info:
+        sample_posterior(fit, max_time=0.05, progress=False, processes=1, n_ensembles=2)
+    assert isinstance(info.value, DeepwellError)
+    assert "--max-time" in str(info.value)

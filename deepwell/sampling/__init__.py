@@ -14,12 +14,12 @@ checkpoints), :mod:`.convergence` (autocorrelation, R-hat, quantiles),
 from .backend import CheckpointError, CheckpointMismatch
 from .convergence import RHAT_MAX, RUN_TAUS, gelman_rubin, split_rhat
 from .core import EnsembleRun, NoProgress, default_moves, run_ensemble
-from .posterior import PosteriorResult, Summary, sample_posterior
+from .posterior import PosteriorResult, SamplingError, Summary, sample_posterior
 from .target import LINEAR_TERMS, LogPosterior, SamplingWarning
 
 __all__ = [
     "sample_posterior", "PosteriorResult", "Summary", "run_ensemble", "EnsembleRun",
     "NoProgress", "default_moves", "LogPosterior", "LINEAR_TERMS", "SamplingWarning",
     "CheckpointError", "CheckpointMismatch", "gelman_rubin", "split_rhat", "RHAT_MAX",
-    "RUN_TAUS",
+    "RUN_TAUS", "SamplingError",
 ]

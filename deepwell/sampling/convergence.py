@@ -109,7 +109,7 @@ def split_rhat(ensembles):
     ndarray, shape (n_dim,)
     """
     n = min(e.shape[0] for e in ensembles) // 2
-    if n < 1:
+    if n < 2:
         return np.full(ensembles[0].shape[-1], np.nan)
     halves = []
     for e in ensembles:

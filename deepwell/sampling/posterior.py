@@ -12,6 +12,7 @@ import emcee
 import numpy as np
 import pandas as pd
 
+from ..errors import DeepwellError
 from ..parameters import EXTRA
 from ..results import UNITS, physical_labels, physical_vector
 from .backend import fingerprint
@@ -29,7 +30,12 @@ from .core import default_moves, run_ensemble
 from .hamiltonian import ChainRun, run_chain
 from .target import LogPosterior, SamplingWarning
 
-__all__ = ["Summary", "PosteriorResult", "sample_posterior", "start_positions"]
+
+class SamplingError(DeepwellError, RuntimeError):
+    """A sampling run that produced nothing to summarise."""
+
+__all__ = ["Summary", "PosteriorResult", "SamplingError", "sample_posterior",
+           "start_positions"]
 
 _ANGLES = ("node", "peri_arg")
 #: Fewest kept draws per NUTS chain for a run to count as converged.
@@ -388,6 +394,13 @@ def sample_posterior(result, n_walkers=None, n_steps=None, seed=0, checkpoint=No
                 checkpoint_every=checkpoint_every or 500, check_every=check_every or 500,
                 max_steps=max_steps or 100_000, desc=f"ensemble {k}", **common)))
     runs = _run_all(jobs, processes)
+    short = [k for k, r in enumerate(runs) if r.n_steps < 4]
+    if short:
+        what = "chain" if nuts else "ensemble"
+        raise SamplingError(
+            f"{what}(s) {', '.join(map(str, short))} stopped with fewer than 4 kept draws "
+            f"({'; '.join(f'{r.stop_reason}' for r in runs)}): nothing to summarise; "
+            "allow more time (--max-time) or steps, or continue with --resume")
     return _assemble(result, target, runs, seed, n_steps, max_time, max_draws,
                      time.monotonic() - t0, sampler)
 
