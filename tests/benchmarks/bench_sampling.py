@@ -4,7 +4,7 @@ Run from the repository root:
 
     python tests/benchmarks/bench_sampling.py [--newtonian] [--steps N] [--max-time S]
 
-1. The default sampler (No-U-Turn chains, 4 chains on 2 processes) runs
+1. The default sampler (No-U-Turn chains, ``--chains`` on 2 processes) runs
    :func:`sample_posterior` until its convergence rule holds (or ``--max-time``
    per chain): wall time, convergence statement, effective samples per second
    of the slowest sampled shared parameter.
@@ -37,6 +37,7 @@ def main(argv=None):
                         help="plain Keplerian model (all relativistic effects off)")
     parser.add_argument("--max-time", type=float, default=1800.0,
                         help="wall-time budget per NUTS chain (s)")
+    parser.add_argument("--chains", type=int, default=4, help="NUTS chains (2 at a time)")
     args = parser.parse_args(argv)
 
     from deepwell.fit import fit_joint
@@ -60,7 +61,8 @@ def main(argv=None):
     start = time.perf_counter()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        post = sample_posterior(result, progress=False, max_time=args.max_time, processes=2)
+        post = sample_posterior(result, progress=False, max_time=args.max_time, processes=2,
+                                n_ensembles=args.chains)
     wall = time.perf_counter() - start
     ess = post.ess
     k = shared[int(np.argmin(ess[shared]))]
