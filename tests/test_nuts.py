@@ -6,23 +6,18 @@ finite difference with another step), and bitwise equality with an
 uninterrupted run.
 """
 
-import json
-import types
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from deepwell.fit import build_model
-from deepwell.parameters import EXTRA, internal_star_values
 from deepwell.sampling import LogPosterior
 from deepwell.sampling.backend import CheckpointMismatch
 from deepwell.sampling.convergence import autocorr_times
 from deepwell.sampling.gradient import WhitenedTarget
 from deepwell.sampling.hamiltonian import run_chain
 from deepwell.sampling.nuts import DualAveraging, initial_step_size, nuts_step
-from deepwell.settings import parse_settings
-from deepwell.tables import read_observations
+from tests.test_sampling import _Crash, _CrashAfter, _tiny_orbit_problem
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 KEPLER = {"romer": False, "redshift": "off", "precession": False}
@@ -101,28 +96,15 @@ def test_dual_averaging_reaches_the_target_acceptance():
 
 # ------------------------------------------------------------ orbit target
 def _one_star():
-    """Sparse demo, first star only, at its true elements (scenario truth file)."""
-    obs = read_observations(SCENARIOS / "sparse")
-    truth = json.loads((SCENARIOS / "sparse" / "truth.json").read_text())
-    settings = parse_settings({"effects": KEPLER})
-    model = build_model(obs, settings)
-    model = model.for_stars(model.stars[:1])
-    lay = model.layout
-    vec = np.zeros(lay.size)
-    for i, name in enumerate(lay.shared_names):
-        vec[i] = truth["shared"][name] if name in truth["shared"] else EXTRA[name].default
-    el = truth["stars"][lay.stars[0]]
-    vec[lay.n_shared:] = internal_star_values(
-        el["period"], el["e"], np.radians(el["inc"]), np.radians(el["node"]),
-        np.radians(el["peri_arg"]), el["t_peri"])
-    res = types.SimpleNamespace(model=model, internal=vec, settings=settings,
-                                internal_cov=np.eye(lay.size))
-    target = LogPosterior(res, marginalise=True)
+    """Sparse demo, first star only, at its true elements (scenario truth file),
+    with its least-squares covariance there."""
     from deepwell.fit import covariance
 
-    free = np.zeros(lay.size, bool)
+    res = _tiny_orbit_problem(KEPLER)
+    target = LogPosterior(res, marginalise=True)
+    free = np.zeros(res.model.layout.size, bool)
     free[target.sampled] = True
-    cov, _ = covariance(model, vec, free)
+    cov, _ = covariance(res.model, res.internal, free)
     return target, cov
 
 
@@ -140,28 +122,6 @@ def test_grouped_gradient_equals_a_plain_central_difference():
     eye = np.eye(wt.n)
     plain = np.array([(wt.log_prob(z + h * e) - wt.log_prob(z - h * e)) / (2 * h) for e in eye])
     assert np.max(np.abs(grad - plain)) < 1e-4 * np.max(np.abs(plain))
-
-
-class _Crash(Exception):
-    pass
-
-
-class _CrashAfter:
-    """Progress object that raises after n transitions (a kill between saves)."""
-
-    def __init__(self, n):
-        self.n = n
-
-    def update(self, k=1):
-        self.n -= k
-        if self.n <= 0:
-            raise _Crash
-
-    def set_postfix_str(self, text, refresh=True):
-        pass
-
-    def close(self):
-        pass
 
 
 def test_killed_chain_resumes_to_the_uninterrupted_one_exactly(tmp_path):

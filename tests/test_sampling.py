@@ -88,6 +88,9 @@ class _CrashAfter:
         if self.n <= 0:
             raise _Crash
 
+    def set_postfix_str(self, text, refresh=True):
+        pass
+
     def close(self):
         pass
 
