@@ -44,7 +44,7 @@ Journal
     (:mod:`deepwell.calibrate_journal`); ``--resume`` continues a run that
     was interrupted.
 
-Documented demo (not in the default test suite; ~2.5 h on 2 cores; its measured result is in README)::
+Documented demo (not in the default test suite; ~2.5 h on 2 cores; result in README)::
 
     deepwell calibrate scenarios/rich --trials 800 --out calib-rich
 
