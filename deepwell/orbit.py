@@ -28,6 +28,9 @@ __all__ = [
     "keplerian_track",
     "elements_from_thiele_innes",
     "position_angle_separation",
+    "gm_angular",
+    "kepler_state",
+    "elements_from_state",
 ]
 
 
@@ -240,6 +243,94 @@ def elements_from_thiele_innes(A, B, F, G, C=None, H=None):
         node = np.where(flip, node + np.pi, node)
         peri_arg = np.where(flip, peri_arg + np.pi, peri_arg)
     return a, inc, node, _wrap(peri_arg, 2.0 * np.pi)
+
+
+def gm_angular(mass, distance):
+    """GM of the central mass in angular units, mas^3 / yr^2.
+
+    Kepler's third law gives GM = 4 pi^2 a^3 / P^2 for any orbit; this is that
+    value for the angular semi-major axis of a 1-yr orbit at ``distance``.
+    """
+    return 4.0 * np.pi**2 * a_from_period(1.0, mass, distance) ** 3
+
+
+def kepler_state(t, period, ecc, inc, node, peri_arg, t_peri, a):
+    """Keplerian position and velocity relative to the mass, in angular units.
+
+    Parameters
+    ----------
+    t : array_like
+        Epoch (Julian yr).
+    period, ecc, inc, node, peri_arg, t_peri, a : array_like
+        Elements (yr, -, rad, rad, rad, yr, mas), broadcast together.
+
+    Returns
+    -------
+    ndarray, shape (..., 6)
+        east, north, z (mas; z away from the observer) and their rates (mas/yr).
+    """
+    X, Y, dX, dY = kepler_xy(t, period, ecc, t_peri)
+    A, B, F, G, C, H = thiele_innes(a, inc, node, peri_arg)
+    return np.stack([B * X + G * Y, A * X + F * Y, C * X + H * Y,
+                     B * dX + G * dY, A * dX + F * dY, C * dX + H * dY], axis=-1)
+
+
+def elements_from_state(state, gm, t):
+    """Keplerian elements of a position and velocity (inverse of :func:`kepler_state`).
+
+    Parameters
+    ----------
+    state : array_like, shape (..., 6)
+        east, north, z (mas) and their rates (mas/yr), relative to the mass.
+    gm : array_like
+        GM in mas^3 / yr^2 (:func:`gm_angular`).
+    t : array_like
+        Epoch of the state (Julian yr).
+
+    Returns
+    -------
+    dict of ndarray
+        ``period`` (yr), ``ecc``, ``e_cos`` and ``e_sin`` (e cos w, e sin w,
+        smooth through e = 0), ``cos_inc``, ``node`` (rad, in (-pi, pi]),
+        ``t_peri`` (yr, within half a period of ``t``), ``a`` (mas).
+        Unbound states (non-negative energy) give NaN.
+
+    Notes
+    -----
+    Standard two-body relations (e.g. Murray & Dermott 1999, Solar System
+    Dynamics, section 2.8, from memory): 1/a = 2/r - v^2/GM, the angular
+    momentum h = r x v and the eccentricity vector (v x h)/GM - r/|r|.  The
+    cross products are taken component-wise in (east, north, z); with the
+    vectors P and Q of :func:`thiele_innes` (r = X P + Y Q) that gives
+    h along W = P x Q = (cos node sin i, -sin node sin i, -cos i), the node
+    direction N = (sin node, cos node, 0) and the in-plane direction W x N,
+    so e cos w = e.N and e sin w = e.(W x N).
+    """
+    s = np.asarray(state, float)
+    r, v = s[..., :3], s[..., 3:]
+    gm = np.asarray(gm, float)
+    rn = np.sqrt(np.sum(r * r, axis=-1))
+    v2 = np.sum(v * v, axis=-1)
+    inv_a = 2.0 / rn - v2 / gm
+    with np.errstate(invalid="ignore", divide="ignore"):
+        a = np.where(inv_a > 0.0, 1.0 / inv_a, np.nan)
+        h = np.cross(r, v)
+        ev = np.cross(v, h) / gm[..., None] - r / rn[..., None]
+        w = h / np.sqrt(np.sum(h * h, axis=-1))[..., None]
+        node = np.arctan2(-w[..., 1], w[..., 0])
+        cos_inc = -w[..., 2]
+        n_vec = np.stack([np.sin(node), np.cos(node), np.zeros_like(node)], axis=-1)
+        m_vec = np.cross(w, n_vec)
+        e_cos = np.sum(ev * n_vec, axis=-1)
+        e_sin = np.sum(ev * m_vec, axis=-1)
+        ecc = np.hypot(e_cos, e_sin)
+        ecos_e = 1.0 - rn / a
+        esin_e = np.sum(r * v, axis=-1) / np.sqrt(gm * a)
+        ecc_anom = np.arctan2(esin_e, ecos_e)
+        period = 2.0 * np.pi * np.sqrt(a**3 / gm)
+        t_peri = np.asarray(t, float) - (ecc_anom - esin_e) * period / (2.0 * np.pi)
+    return {"period": period, "ecc": ecc, "e_cos": e_cos, "e_sin": e_sin, "cos_inc": cos_inc,
+            "node": node, "t_peri": t_peri, "a": a}
 
 
 def position_angle_separation(east, north):

@@ -7,17 +7,12 @@ Coordinates
     well-measured data set is close to a unit Gaussian, which is what lets a
     Hamiltonian sampler with a unit mass matrix take large steps.
 
-Longitude coordinate
-    Each star's pericentre epoch is sampled as its mean argument of latitude
-    at the mean epoch t_k of its positions, lambda = 2 pi (t_k - t_peri) / P
-    + omega (omega = atan2(sqrt(e) sin w, sqrt(e) cos w)), instead of t_peri.
-    A partly covered orbit fixes where the star is along its orbit at t_k
-    much better than when it last passed pericentre, and for a nearly
-    circular orbit omega and the phase are degenerate while their sum is not
-    (mean longitude, common practice in orbit fitting).  The map is triangular
-    with |dt_peri/dlambda| = P / 2 pi, which the density in the new
-    coordinates carries, so the posterior of the reported quantities and
-    their uniform prior in t_peri are unchanged.
+Per-star coordinates
+    Before whitening, each star's elements are mapped to the coordinates of
+    :mod:`deepwell.sampling.coordinates` (its position and velocity at the
+    mean epoch of its data for a partly covered orbit, its mean argument of
+    latitude instead of t_peri otherwise); the density carries the Jacobian
+    of that map, so the sampled posterior of theta is unchanged.
 
 Gradient
     The log-posterior is -1/2 |M r(theta)|^2 + const + log J(theta), r the
@@ -41,6 +36,7 @@ Gradient
 import numpy as np
 
 from ..parameters import STAR_INTERNAL
+from .coordinates import STATE_ARC, SamplingCoordinates
 
 __all__ = ["WhitenedTarget"]
 
@@ -59,84 +55,54 @@ class WhitenedTarget:
         Forward-difference step in units of each parameter's standard
         deviation under ``cov``.
     cov_u : ndarray, optional
-        Covariance in the phase coordinates u instead (replaces ``cov`` for
+        Covariance in the per-star coordinates u instead (replaces ``cov`` for
         the whitening; used after the warm-up adapts the metric).
+    state_arc : float
+        Data span (fraction of the period) below which a star moves in its
+        state (:class:`~deepwell.sampling.coordinates.SamplingCoordinates`).
     """
 
-    def __init__(self, target, centre, cov, rel_step=1e-6, cov_u=None):
+    def __init__(self, target, centre, cov, rel_step=1e-6, cov_u=None, state_arc=STATE_ARC):
         self.target = target
+        centre = np.asarray(centre, float)
         self.n = len(centre)
         model = target.model
-        lay = model.layout
-        n_sh, n_el = lay.n_shared, len(STAR_INTERNAL)
-        col = {i: c for c, i in enumerate(target.sampled)}
-        self._per, self._tp, self._tref, self._c, self._s = [], [], [], [], []
-        for k in range(len(model.stars)):
-            i_p, i_t = n_sh + k * n_el, n_sh + k * n_el + n_el - 1
-            t = model.pos.t[model.pos.star == k]
-            if all(i in col for i in (i_p, i_t, i_p + 1, i_p + 2)) and t.size:
-                self._per.append(col[i_p])
-                self._tp.append(col[i_t])
-                self._c.append(col[i_p + 1])
-                self._s.append(col[i_p + 2])
-                self._tref.append(float(np.mean(t)))
-        self._per, self._tp = np.array(self._per, np.intp), np.array(self._tp, np.intp)
-        self._c, self._s = np.array(self._c, np.intp), np.array(self._s, np.intp)
-        self._tref = np.array(self._tref, float)
         cov = 0.5 * (np.asarray(cov, float) + np.asarray(cov, float).T)
+        self.coords = SamplingCoordinates(target, centre, cov, state_arc=state_arc)
         self.steps = rel_step * np.sqrt(np.diag(cov))  # in theta
-        self.centre = self.to_u(np.asarray(centre, float))
+        self.centre = self.to_u(centre)
         if cov_u is None:
-            jinv = np.linalg.inv(self._jac(self.centre))
-            cov_u = jinv @ cov @ jinv.T
+            ju = self.coords.jacobian_to_u(centre)
+            cov_u = ju @ cov @ ju.T
         self.cov = 0.5 * (cov_u + cov_u.T)
         self.chol = np.linalg.cholesky(self.cov)
         self.owner = model.residual_owner()
-        groups = []  # (columns in theta, their star indices or -1)
-        for c, i in enumerate(target.sampled):
-            if i < n_sh:
-                groups.append(([c], [-1]))
-        for j in range(n_el):
-            cols = [c for c, i in enumerate(target.sampled)
-                    if i >= n_sh and (i - n_sh) % n_el == j]
-            if cols:
-                stars = [(target.sampled[c] - n_sh) // n_el for c in cols]
-                groups.append((cols, stars))
-        self.groups = groups
         self.rows_of = {k: np.flatnonzero(self.owner == k) for k in range(len(model.stars))}
+        n_sh = model.layout.n_shared
+        # Model-difference groups in theta: each shared column, then element j of all stars.
+        self.groups = [([c], [-1]) for c, i in enumerate(target.sampled) if i < n_sh]
+        n_el = len(STAR_INTERNAL)
+        for j in range(n_el):
+            cols = [c for c, i in enumerate(target.sampled) if i >= n_sh and (i - n_sh) % n_el == j]
+            if cols:
+                self.groups.append((cols, [(target.sampled[c] - n_sh) // n_el for c in cols]))
 
     # ------------------------------------------------------------ coordinates
-    def _omega(self, x):
-        return np.arctan2(x[..., self._s], x[..., self._c])
-
     def to_u(self, theta):
-        """Phase coordinates of sampled points (t_peri replaced by lambda)."""
-        u = np.array(theta, float, copy=True)
-        u[..., self._tp] = (2.0 * np.pi * (self._tref - u[..., self._tp]) / u[..., self._per]
-                            + self._omega(u))
-        return u
+        """Per-star coordinates of sampled points."""
+        return self.coords.to_u(theta)
 
     def to_theta(self, u):
-        """Sampled coordinates of phase-coordinate points."""
-        th = np.array(u, float, copy=True)
-        th[..., self._tp] = self._tref - u[..., self._per] * (
-            u[..., self._tp] - self._omega(u)) / (2.0 * np.pi)
-        return th
+        """Sampled coordinates of per-star-coordinate points (NaN where unbound)."""
+        return self.coords.to_theta(u)
 
     def _jac(self, u):
         """d theta / d u at one point."""
-        jac = np.eye(self.n)
-        per, tp, c, s = u[self._per], u[self._tp], u[self._c], u[self._s]
-        rho2 = c * c + s * s
-        jac[self._tp, self._tp] = -per / (2.0 * np.pi)
-        jac[self._tp, self._per] = -(tp - self._omega(u)) / (2.0 * np.pi)
-        jac[self._tp, self._s] = per / (2.0 * np.pi) * c / rho2
-        jac[self._tp, self._c] = -per / (2.0 * np.pi) * s / rho2
-        return jac
+        return self.coords.jacobian(u)[0]
 
     def log_det(self, u):
-        """log |d theta / d u| = sum of log(P / 2 pi) over the rephased stars."""
-        return np.sum(np.log(np.abs(np.asarray(u)[..., self._per]) / (2.0 * np.pi)), axis=-1)
+        """log |d theta / d u|."""
+        return self.coords.log_det(u)
 
     @property
     def n_rows(self):
@@ -158,9 +124,11 @@ class WhitenedTarget:
         return solve_triangular(self.chol, d.T, lower=True).T
 
     def log_prob(self, z):
-        """Log-density of z (posterior of theta times the phase Jacobian), shape (...)."""
+        """Log-density of z (posterior of theta times the coordinate Jacobian), shape (...)."""
         u = self.u(z)
-        return self.target(self.to_theta(u)) + self.log_det(u)
+        theta, terms = self.coords.theta_and_terms(u)
+        lp = self.target(theta)
+        return np.where(np.isfinite(lp), lp + np.sum(terms, axis=-1), -np.inf)
 
     def __call__(self, z):
         """(log-density, gradient with respect to z) at one point z.
@@ -192,9 +160,8 @@ class WhitenedTarget:
         if t._jacobian_terms:
             lp += float(t._jacobian(vec[:1])[0])
             grad += self._jacobian_gradient(theta)
-        grad_u = self._jac(u).T @ grad
-        grad_u[self._per] += 1.0 / u[self._per]
-        return lp, self.chol.T @ grad_u
+        jac, dlogdet = self.coords.jacobian(u)
+        return lp, self.chol.T @ (jac.T @ grad + dlogdet)
 
     def _jacobian_gradient(self, theta):
         """Central differences of the prior-Jacobian term (no model call)."""

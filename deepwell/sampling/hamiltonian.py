@@ -28,6 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .backend import load_state, save_state
+from .coordinates import COORDS_VERSION
 from .core import make_progress
 from .gradient import WhitenedTarget
 from .nuts import DualAveraging, initial_step_size, nuts_step
@@ -148,7 +149,7 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
     ChainRun
     """
     fingerprint = (f"{fingerprint}|nuts|warmup={n_warmup}|depth={max_depth}|"
-                   f"metric={adapt_metric}")
+                   f"metric={adapt_metric}|coords={COORDS_VERSION}")
     prior_cov = np.asarray(cov, float)
     windows = [(int(0.1 * n_warmup), int(0.35 * n_warmup)),
                (int(0.35 * n_warmup), int(0.75 * n_warmup))]
