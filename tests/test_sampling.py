@@ -183,12 +183,12 @@ def test_rhat_near_one_for_independent_ensembles_and_large_for_separated_modes()
 
 
 # ----------------------------------------------------- analytic marginalising
-def _tiny_orbit_problem(effects, priors=None):
+def _tiny_orbit_problem(effects, priors=None, shared=None):
     """Sparse demo, one star, at its true elements (scenario truth file)."""
     obs = read_observations(SCENARIOS / "sparse")
     truth = json.loads((SCENARIOS / "sparse" / "truth.json").read_text())
     stars = {s: {"prior": p} for s, p in (priors or {}).items()}
-    settings = parse_settings({"effects": effects, "stars": stars})
+    settings = parse_settings({"effects": effects, "stars": stars, "shared": shared or {}})
     model = build_model(obs, settings)
     model = model.for_stars(model.stars[:1]) if hasattr(model, "for_stars") else model
     lay = model.layout

@@ -26,7 +26,11 @@ state
         |d(state) / d(theta_k)| = (2/3) GM^2 e / P,
 
     and the density in the state carries its inverse.  (Checked against a
-    finite-difference determinant in the tests.)
+    finite-difference determinant in the tests.)  The factor 1/e is the
+    statement, in phase space, that a prior uniform in e puts more weight
+    on nearly circular orbits than a prior uniform in position and velocity
+    does; it is integrable, but a star whose posterior reaches e = 0 gives
+    the sampler a cusp there, which shows as divergent transitions.
 phase
     Any other star with all six elements sampled has t_peri replaced by its
     mean argument of latitude at t_k, lambda = 2 pi (t_k - t_peri) / P + w

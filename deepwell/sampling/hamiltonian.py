@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .backend import load_state, save_state
-from .coordinates import COORDS_VERSION
+from .coordinates import COORDS_VERSION, STATE_ARC
 from .core import make_progress
 from .gradient import WhitenedTarget
 from .nuts import DualAveraging, initial_step_size, nuts_step
@@ -118,7 +118,7 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
               checkpoint=None, fingerprint="", resume=False, checkpoint_every=50,
               max_time=None, progress=False, stop_rule=None, check_every=50,
               max_draws=20_000, min_draws=200, max_depth=8, adapt_metric=True,
-              desc="chain", position=0):
+              desc="chain", position=0, state_arc=STATE_ARC):
     """Run one NUTS chain on a :class:`~deepwell.sampling.target.LogPosterior`.
 
     Parameters
@@ -143,13 +143,16 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
         Tree depth limit (at most 2**max_depth - 1 leapfrog steps).
     adapt_metric : bool
         Replace the least-squares whitening by the warm-up covariance.
+    state_arc : float
+        Stars whose data span less than this fraction of their period move in
+        their position and velocity (:mod:`deepwell.sampling.coordinates`).
 
     Returns
     -------
     ChainRun
     """
     fingerprint = (f"{fingerprint}|nuts|warmup={n_warmup}|depth={max_depth}|"
-                   f"metric={adapt_metric}|coords={COORDS_VERSION}")
+                   f"metric={adapt_metric}|coords={COORDS_VERSION}|state_arc={state_arc}")
     prior_cov = np.asarray(cov, float)
     windows = [(int(0.1 * n_warmup), int(0.35 * n_warmup)),
                (int(0.35 * n_warmup), int(0.75 * n_warmup))]
@@ -158,7 +161,8 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
             raise ValueError("resume=True needs a checkpoint file")
         arr, att = load_state(checkpoint, fingerprint, kind=_KIND)
         rng.bit_generator.state = att["rng_state"]
-        wt = WhitenedTarget(target, centre, prior_cov, cov_u=arr["metric"])
+        wt = WhitenedTarget(target, centre, prior_cov, cov_u=arr["metric"],
+                            state_arc=state_arc)
         z, lp, grad = arr["z"], float(att["log_prob"]), arr["grad"]
         eps = float(att["eps"])
         da = DualAveraging.from_state(list(arr["dual"]))
@@ -167,7 +171,7 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
         draws, lps = list(arr["chain"]), list(arr["log_prob"])
         stats = [tuple(row) for row in arr["stats"]]
     else:
-        wt = WhitenedTarget(target, centre, prior_cov)
+        wt = WhitenedTarget(target, centre, prior_cov, state_arc=state_arc)
         z = wt.whiten(np.asarray(theta0, float))
         lp, grad = wt(z)
         if not (np.isfinite(lp) and np.all(np.isfinite(grad))):
@@ -212,7 +216,7 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
                     window.append(wt.u(z))
                 if adapt_metric and any(it == hi for _, hi in windows) and len(window) > 1:
                     theta = wt.theta(z)
-                    wt = WhitenedTarget(target, centre, prior_cov,
+                    wt = WhitenedTarget(target, centre, prior_cov, state_arc=state_arc,
                                         cov_u=adapted_cov(window, wt.cov))
                     z = wt.whiten(theta)
                     lp, grad = wt(z)
