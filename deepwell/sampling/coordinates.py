@@ -38,10 +38,17 @@ phase
 plain
     Stars with fixed elements (nothing to map).
 
+mass and distance
+    When both are sampled they move as log GM (angular units, mas^3/yr^2)
+    and log distance: the astrometry fixes GM/R0^3 far better than either,
+    and a sparse data set leaves a curved (power-law) mass-distance ridge
+    that logarithms straighten.  With M proportional to GM R0^3,
+    |d(M, R0) / d(log GM, log R0)| = M R0.
+
 Either way the density in the new coordinates is the posterior of theta
 times |d theta / d u|, so the sampled posterior of every reported quantity,
-and the priors stated for theta, are unchanged.  Shared entries (mass,
-distance, effect factors) are the same in u and theta.
+and the priors stated for theta, are unchanged.  Other shared entries
+(effect factors) are the same in u and theta.
 """
 
 import numpy as np
@@ -95,6 +102,8 @@ class SamplingCoordinates:
         self._dcol = col.get(names.index("distance"))
         self._mass = float(target.base[names.index("mass")])
         self._dist = float(target.base[names.index("distance")])
+        self.log_scale = self._mcol is not None and self._dcol is not None
+        self._gm_unit = float(gm_angular(1.0, 1.0))
         full = target.full_vectors(centre)
         el = lay.elements(full)
         self.kinds, phase, state = [], [], []
@@ -139,6 +148,7 @@ class SamplingCoordinates:
 
     # ------------------------------------------------------------------ maps
     def _shared(self, x):
+        """Mass and distance of points of theta."""
         m = x[..., self._mcol] if self._mcol is not None else np.full(x.shape[:-1], self._mass)
         d = x[..., self._dcol] if self._dcol is not None else np.full(x.shape[:-1], self._dist)
         return m, d
@@ -159,20 +169,29 @@ class SamplingCoordinates:
             st = kepler_state(self._stref, s[..., 0], ecc, np.arccos(np.clip(s[..., 3], -1, 1)),
                               s[..., 4], np.arctan2(s[..., 2], s[..., 1]), s[..., 5], a)
             u[..., self._sc] = st
+        if self.log_scale:
+            m, d = self._shared(theta)
+            u[..., self._mcol] = np.log(gm_angular(m, d))
+            u[..., self._dcol] = np.log(d)
         return u
 
     def theta_and_terms(self, u):
         """theta of u and the per-star terms of log|d theta / d u|, shape (..., n_stars)."""
         u = np.asarray(u, float)
         th = u.copy()
-        terms = np.zeros(u.shape[:-1] + (self.n_stars,))
+        terms = np.zeros(u.shape[:-1] + (self.n_stars + 1,))  # last: mass and distance
+        if self.log_scale:
+            d = np.exp(u[..., self._dcol])
+            m = np.exp(u[..., self._mcol]) * d**3 / self._gm_unit
+            th[..., self._mcol], th[..., self._dcol] = m, d
+            terms[..., -1] = np.log(m) + np.log(d)
         if len(self._pc):
             p = u[..., self._pc]
             omega = np.arctan2(p[..., 2], p[..., 1])
             th[..., self._pc[:, 5]] = self._ptref - p[..., 0] * (p[..., 5] - omega) / (2 * np.pi)
             terms[..., self._phase_star] = np.log(np.abs(p[..., 0]) / (2.0 * np.pi))
         if len(self._sc):
-            m, d = self._shared(u)
+            m, d = self._shared(th)
             gm = gm_angular(m, d)[..., None]
             el = elements_from_state(u[..., self._sc], gm, self._stref)
             root = np.sqrt(el["ecc"])
@@ -223,7 +242,7 @@ class SamplingCoordinates:
 
     def jacobian_to_u(self, theta):
         """d u / d theta at one point (central differences)."""
-        return self._grouped(lambda r: (self.to_u(r), np.zeros((len(r), self.n_stars))),
+        return self._grouped(lambda r: (self.to_u(r), np.zeros((len(r), self.n_stars + 1))),
                              theta, self._theta_steps)[0]
 
     def jacobian(self, u):
