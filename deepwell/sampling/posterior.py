@@ -26,6 +26,7 @@ from .convergence import (
     quantile_summary,
     split_rhat,
 )
+from .coordinates import STATE_ARC, SamplingCoordinates
 from .core import default_moves, run_ensemble
 from .hamiltonian import ChainRun, run_chain
 from .target import LogPosterior, SamplingWarning
@@ -401,8 +402,21 @@ def sample_posterior(result, n_walkers=None, n_steps=None, seed=0, checkpoint=No
             f"{what}(s) {', '.join(map(str, short))} stopped with fewer than 4 kept draws "
             f"({'; '.join(f'{r.stop_reason}' for r in runs)}): nothing to summarise; "
             "allow more time (--max-time) or steps, or continue with --resume")
+    notes = (_coordinates_note(target, centre, cov),) if nuts else ()
     return _assemble(result, target, runs, seed, n_steps, max_time, max_draws,
-                     time.monotonic() - t0, sampler)
+                     time.monotonic() - t0, sampler, notes)
+
+
+def _coordinates_note(target, centre, cov):
+    """Which stars the chains moved in their position and velocity."""
+    coords = SamplingCoordinates(target, centre, cov)
+    state = [s for s, k in zip(target.model.stars, coords.kinds, strict=True) if k == "state"]
+    text = ("coordinates: " + (", ".join(state) if state else "no star")
+            + f" moved in position and velocity at the mean epoch of its data (data span < "
+            f"{STATE_ARC:g} of the period), the others in mean longitude")
+    if coords.log_scale:
+        text += "; mass and distance as log GM and log distance"
+    return text
 
 
 def _diagnostics(runs):
@@ -426,7 +440,7 @@ def _diagnostics(runs):
 
 
 def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed,
-              sampler="ensemble"):
+              sampler="ensemble", notes=()):
     thin = runs[0].thin
     burns = [burn_in(r.chain, thin) for r in runs]
     kept = [r.chain[b:] for r, b in zip(runs, burns, strict=False)]
@@ -457,4 +471,4 @@ def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed,
         statement=text, implied_priors=target.implied_priors(),
         marginalised=tuple(lay.names()[i] for i in target.marginal),
         stop_reasons=tuple(r.stop_reason for r in runs), elapsed=elapsed, seed=seed,
-        sampler=sampler, diagnostics=_diagnostics(runs))
+        sampler=sampler, diagnostics=_diagnostics(runs) + tuple(notes))
