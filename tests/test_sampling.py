@@ -276,6 +276,26 @@ def test_short_run_on_sparse_demo_says_not_converged_and_summarises_correctly():
     assert any("sin(i)" in text for text in post.implied_priors)
 
 
+def test_nuts_report_names_the_stars_moved_in_position_and_velocity():
+    """The sampling diagnostics say which stars the chains moved in their
+    position and velocity: those whose data span less than half their period
+    (span from the tables, period from the scenario truth file)."""
+    obs = read_observations(SCENARIOS / "sparse")
+    truth = json.loads((SCENARIOS / "sparse" / "truth.json").read_text())
+    fit = fit_joint(obs, parse_settings({"effects": {"romer": False, "redshift": "off",
+                                                     "precession": False}}))
+    with pytest.warns(SamplingWarning, match="NOT CONVERGED"):
+        post = sample_posterior(fit, n_steps=5, n_warmup=10, n_ensembles=2, progress=False,
+                                processes=1)
+    note = next(t for t in post.diagnostics if t.startswith("coordinates:"))
+    for star in fit.model.stars:
+        epochs = np.concatenate([obs.positions.loc[obs.positions.star == star, "epoch"],
+                                 obs.velocities.loc[obs.velocities.star == star, "epoch"]])
+        short = np.ptp(epochs) < 0.5 * truth["stars"][star]["period"]
+        assert (star in note.split(" moved")[0]) == short
+    assert "log GM" in note
+
+
 def test_prior_on_a_carries_the_jacobian_of_the_sampled_period():
     """A Gaussian prior on a, sampled in period: log p gains log|da/dP| =
     log(2 a / 3 P) (Kepler's third law, a^3 proportional to P^2 at fixed mass
