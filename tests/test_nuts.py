@@ -180,6 +180,23 @@ def test_star_coordinates_round_trip_and_carry_their_jacobian(state_arc, kind):
     assert float(wt.log_prob(z)) == pytest.approx(float(target(theta)) + logdet, abs=1e-5)
 
 
+def test_state_map_picks_the_pericentre_epoch_nearest_the_fit_and_reports_the_window():
+    """A Keplerian orbit repeats with its period (common practice), so the state
+    map may return t_peri shifted by whole periods: shifted by 0.55 P, a point
+    comes back 0.45 P on the other side of the least-squares value, with the
+    same log-posterior; window_use reports how far draws reach (0.45)."""
+    target, cov = _one_star()
+    theta = target.base[target.sampled]
+    wt = WhitenedTarget(target, theta, cov, state_arc=1e9)
+    i_p, i_t = target.names.index("s0_period"), target.names.index("s0_t_peri")
+    moved = theta.copy()
+    moved[i_t] += 0.55 * theta[i_p]
+    back = wt.to_theta(wt.to_u(moved))
+    assert back[i_t] == pytest.approx(theta[i_t] - 0.45 * theta[i_p], abs=1e-8)
+    assert float(target(back)) == pytest.approx(float(target(moved)), abs=1e-8)
+    assert wt.coords.window_use(back[None])[0] == pytest.approx(0.45, abs=1e-9)
+
+
 def test_state_map_obeys_the_two_body_integrals():
     """Position and velocity from the elements (deepwell.orbit.kepler_state)
     against the textbook integrals of the two-body problem, vis-viva

@@ -63,7 +63,7 @@ __all__ = ["STATE_ARC", "COORDS_VERSION", "SamplingCoordinates"]
 STATE_ARC = 0.5
 
 #: Changes whenever the meaning of the coordinates changes (checkpoints refuse others).
-COORDS_VERSION = 2
+COORDS_VERSION = 3
 
 
 class SamplingCoordinates:
@@ -213,6 +213,30 @@ class SamplingCoordinates:
     def log_det(self, u):
         """log |d theta / d u|, shape (...)."""
         return np.sum(self.theta_and_terms(u)[1], axis=-1)
+
+    def window_use(self, theta):
+        """How far draws reach into the node and t_peri windows of the state map.
+
+        The state map returns the node within half a turn, and t_peri within
+        half a period, of their least-squares values.  For a Keplerian star
+        that is only a choice of representative; for an integrated orbit or a
+        prior on node or t_peri, posterior mass beyond the window would be
+        cut.
+
+        Returns
+        -------
+        dict
+            star index -> largest |node - node_ls| / 2 pi or
+            |t_peri - t_peri_ls| / P over the draws (0.5 = the window edge).
+        """
+        th = np.asarray(theta, float).reshape(-1, self.n)
+        out = {}
+        for i, k in enumerate(self._state_star):
+            cols = self._sc[i]
+            dn = np.abs(th[:, cols[4]] - self._node_ref[i]) / (2.0 * np.pi)
+            dt = np.abs(th[:, cols[5]] - self._tp_ref[i]) / th[:, cols[0]]
+            out[int(k)] = float(np.max(np.maximum(dn, dt))) if len(th) else 0.0
+        return out
 
     # ------------------------------------------------------------ derivatives
     def _grouped(self, func, x, steps):

@@ -402,21 +402,30 @@ def sample_posterior(result, n_walkers=None, n_steps=None, seed=0, checkpoint=No
             f"{what}(s) {', '.join(map(str, short))} stopped with fewer than 4 kept draws "
             f"({'; '.join(f'{r.stop_reason}' for r in runs)}): nothing to summarise; "
             "allow more time (--max-time) or steps, or continue with --resume")
-    notes = (_coordinates_note(target, centre, cov),) if nuts else ()
+    notes = _coordinates_notes(target, centre, cov, runs) if nuts else ()
     return _assemble(result, target, runs, seed, n_steps, max_time, max_draws,
                      time.monotonic() - t0, sampler, notes)
 
 
-def _coordinates_note(target, centre, cov):
-    """Which stars the chains moved in their position and velocity."""
+def _coordinates_notes(target, centre, cov, runs):
+    """Which stars the chains moved in their position and velocity (and any
+    whose draws reach the edge of the state map's node or t_peri window)."""
     coords = SamplingCoordinates(target, centre, cov)
     state = [s for s, k in zip(target.model.stars, coords.kinds, strict=True) if k == "state"]
     text = ("coordinates: " + (", ".join(state) if state else "no star")
             + f" moved in position and velocity at the mean epoch of its data (data span < "
-            f"{STATE_ARC:g} of the period), the others in mean longitude")
+            f"{STATE_ARC:g} of the period); other stars with free elements in mean longitude")
     if coords.log_scale:
         text += "; mass and distance as log GM and log distance"
-    return text
+    draws = np.concatenate([r.chain.reshape(-1, len(centre)) for r in runs])
+    edge = [target.model.stars[k] for k, f in coords.window_use(draws).items() if f > 0.4]
+    out = (text,)
+    if edge:
+        out += ("WARNING: the draws of " + ", ".join(edge) + " reach the edge of the "
+                "window of node (one turn) or pericentre epoch (one period) around the "
+                "least-squares values; that orbit is barely constrained, and with an "
+                "integrated orbit or a prior on those elements the posterior there is cut",)
+    return out
 
 
 def _diagnostics(runs):
