@@ -421,10 +421,12 @@ def _coordinates_notes(target, centre, cov, runs):
     edge = [target.model.stars[k] for k, f in coords.window_use(draws).items() if f > 0.4]
     out = (text,)
     if edge:
-        out += ("WARNING: the draws of " + ", ".join(edge) + " reach the edge of the "
-                "window of node (one turn) or pericentre epoch (one period) around the "
-                "least-squares values; that orbit is barely constrained, and with an "
-                "integrated orbit or a prior on those elements the posterior there is cut",)
+        text = ("the draws of " + ", ".join(edge) + " reach the edge of the window of node "
+                "(one turn) or pericentre epoch (one period) around the least-squares values; "
+                "that orbit is barely constrained, and with an integrated orbit or a prior on "
+                "those elements the posterior there is cut")
+        warnings.warn(SamplingWarning(text), stacklevel=3)
+        out += ("WARNING: " + text,)
     return out
 
 
