@@ -75,7 +75,7 @@ def _cell(x, edges):
     return np.clip(np.searchsorted(edges, x, side="right") - 1, 0, len(edges) - 2)
 
 
-def mass_distance_data(posterior, bins=60, smooth=1.2):
+def mass_distance_data(posterior, bins=None, smooth=1.2):
     """Gridded joint density of mass and distance with its credible-level thresholds.
 
     Returns
@@ -86,8 +86,16 @@ def mass_distance_data(posterior, bins=60, smooth=1.2):
         Gaussian of ``smooth`` cells), ``thresholds`` (for CONTOUR_LEVELS, see
         :func:`credible_levels`),
         ``median`` (mass, distance) and ``samples`` (n, 2).
+
+    Notes
+    -----
+    ``bins`` (per axis) defaults to sqrt(n) / 1.5 within [20, 60]: a fine
+    grid with few samples breaks the outer contour into islands around lone
+    draws.
     """
     s = posterior.flat_samples
+    if bins is None:
+        bins = int(np.clip(np.sqrt(len(s)) / 1.5, 20, 60))
     m = s[:, posterior.labels.index("mass")]
     d = s[:, posterior.labels.index("distance")]
     rm = np.percentile(m, [0.05, 99.95])
@@ -117,7 +125,8 @@ def mass_distance_figure(posterior, least_squares=None):
                     colors=[PALETTE[1], PALETTE[3]], alpha=0.6)
         ax.contour(dd["mass"], dd["distance"], dd["density"], levels=[t2, t1],
                    colors=MODEL_COLOUR, linewidths=0.7)
-        ax.plot(*dd["median"], "o", color=MODEL_COLOUR, ms=4, label="posterior median")
+        ax.plot(*dd["median"], "o", color=MODEL_COLOUR, ms=4, label="posterior median",
+                zorder=5)
         ax.fill_between([], [], color=PALETTE[3], alpha=0.6, label="68.3% of the posterior")
         ax.fill_between([], [], color=PALETTE[1], alpha=0.6, label="95.4% of the posterior")
         if least_squares is not None:
