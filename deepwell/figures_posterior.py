@@ -50,9 +50,13 @@ def corner_figure(posterior, names):
     with matplotlib.rc_context(STYLE):
         size = max(4.0, 1.35 * len(labels))
         fig = _new_figure((size, size))
+        # bins from the number of draws and a one-bin smoothing of the 2-d
+        # histograms, as for the mass-distance figure: few draws on a fine
+        # grid draw noise as structure
+        bins = int(np.clip(np.sqrt(len(data)) / 1.5, 15, 40))
         corner.corner(data, fig=fig, labels=axis, quantiles=(0.16, 0.5, 0.84),
                       levels=CONTOUR_LEVELS, color=PALETTE[3], plot_datapoints=False,
-                      label_kwargs={"fontsize": 7})
+                      bins=bins, smooth=1.0, label_kwargs={"fontsize": 7})
     return fig
 
 
