@@ -170,17 +170,19 @@ def keplerian_track(t, a, ecc, inc, node, peri_arg, t_peri, period, distance):
     -------
     OrbitTrack
     """
+    east, north, z, v_east, v_north, v_z = _sky_state(t, a, ecc, inc, node, peri_arg, t_peri,
+                                                      period)
+    mas_per_yr_to_kms = np.asarray(distance) * 1e-3 * KMS_PER_AU_PER_YR
+    return OrbitTrack(east=east, north=north, z=z, v_east=v_east, v_north=v_north,
+                      v_z=v_z * mas_per_yr_to_kms)
+
+
+def _sky_state(t, a, ecc, inc, node, peri_arg, t_peri, period):
+    """east, north, z and their rates, in the unit of ``a`` (and per yr)."""
     X, Y, dX, dY = kepler_xy(t, period, ecc, t_peri)
     A, B, F, G, C, H = thiele_innes(a, inc, node, peri_arg)
-    mas_per_yr_to_kms = np.asarray(distance) * 1e-3 * KMS_PER_AU_PER_YR
-    return OrbitTrack(
-        east=B * X + G * Y,
-        north=A * X + F * Y,
-        z=C * X + H * Y,
-        v_east=B * dX + G * dY,
-        v_north=A * dX + F * dY,
-        v_z=(C * dX + H * dY) * mas_per_yr_to_kms,
-    )
+    return (B * X + G * Y, A * X + F * Y, C * X + H * Y,
+            B * dX + G * dY, A * dX + F * dY, C * dX + H * dY)
 
 
 def elements_from_thiele_innes(A, B, F, G, C=None, H=None):
@@ -269,10 +271,7 @@ def kepler_state(t, period, ecc, inc, node, peri_arg, t_peri, a):
     ndarray, shape (..., 6)
         east, north, z (mas; z away from the observer) and their rates (mas/yr).
     """
-    X, Y, dX, dY = kepler_xy(t, period, ecc, t_peri)
-    A, B, F, G, C, H = thiele_innes(a, inc, node, peri_arg)
-    return np.stack([B * X + G * Y, A * X + F * Y, C * X + H * Y,
-                     B * dX + G * dY, A * dX + F * dY, C * dX + H * dY], axis=-1)
+    return np.stack(_sky_state(t, a, ecc, inc, node, peri_arg, t_peri, period), axis=-1)
 
 
 def elements_from_state(state, gm, t):

@@ -157,20 +157,19 @@ class SamplingCoordinates:
         """Sampler coordinates of points of theta, shape (..., n)."""
         theta = np.asarray(theta, float)
         u = theta.copy()
+        m, d = self._shared(theta)
         if len(self._pc):
             p = theta[..., self._pc]  # (..., n_phase, 6)
             omega = np.arctan2(p[..., 2], p[..., 1])
             u[..., self._pc[:, 5]] = 2.0 * np.pi * (self._ptref - p[..., 5]) / p[..., 0] + omega
         if len(self._sc):
             s = theta[..., self._sc]
-            m, d = self._shared(theta)
             ecc = np.minimum(s[..., 1] ** 2 + s[..., 2] ** 2, MAX_ECC)
             a = a_from_period(s[..., 0], m[..., None], d[..., None])
             st = kepler_state(self._stref, s[..., 0], ecc, np.arccos(np.clip(s[..., 3], -1, 1)),
                               s[..., 4], np.arctan2(s[..., 2], s[..., 1]), s[..., 5], a)
             u[..., self._sc] = st
         if self.log_scale:
-            m, d = self._shared(theta)
             u[..., self._mcol] = np.log(gm_angular(m, d))
             u[..., self._dcol] = np.log(d)
         return u

@@ -137,7 +137,7 @@ class WhitenedTarget:
         """
         t = self.target
         u = self.u(z)
-        theta = self.to_theta(u)
+        theta, terms = self.coords.theta_and_terms(u)
         trial = np.repeat(theta[None], self.n_rows, axis=0)
         for g, (cols, _) in enumerate(self.groups):
             trial[1 + g, cols] += self.steps[cols]
@@ -150,7 +150,7 @@ class WhitenedTarget:
         r0 = r[0]
         if t._proj is not None:
             r0 = r0 - (t._proj @ r0) @ t.design.T
-        lp = -0.5 * float(r0 @ r0) + t.log_norm + float(self.log_det(u))
+        lp = -0.5 * float(r0 @ r0) + t.log_norm + float(np.sum(terms))
         grad = np.empty(self.n)
         for g, (cols, stars) in enumerate(self.groups):
             diff = r[1 + g] - r[0]
