@@ -10,7 +10,7 @@ for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
 
 import pytest  # noqa: E402
 
-from deepwell.simulate import write_scenario  # noqa: E402
+from deepwell.tools.simulate import write_scenario  # noqa: E402
 
 # An invented nucleus for injection-recovery tests (no real object behind it).
 SMALL_SCENARIO = textwrap.dedent("""

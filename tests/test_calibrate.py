@@ -13,12 +13,13 @@ import pytest
 from astropy.table import Table
 from scipy import stats
 
-from deepwell.calibrate import (
+from deepwell.cli.calibrate import add_calibrate_parser
+from deepwell.fit.sampling import SamplerOptions
+from deepwell.tables.settings import Settings, SharedSetting
+from deepwell.tools.calibrate import (
     LEVELS,
-    SampleOptions,
     TrialSpec,
     acceptance_band,
-    add_calibrate_parser,
     calibrate,
     calibrated_names,
     clopper_pearson,
@@ -28,7 +29,6 @@ from deepwell.calibrate import (
     scenario_description,
     trial_seeds,
 )
-from deepwell.settings import Settings, SharedSetting
 
 # Invented for these tests; no real object behind it.  Periods 14.9 and 9.7 yr.
 TINY = textwrap.dedent("""
@@ -206,11 +206,11 @@ def test_a_wrong_fit_model_fails_the_check(tiny):
 # 40 NUTS draws are deliberately too few to converge; the sampler says so with a
 # SamplingWarning (made an error by the test settings) and the trial is then
 # recorded as "not converged", which is what this test checks.
-@pytest.mark.filterwarnings("ignore::deepwell.sampling.SamplingWarning")
+@pytest.mark.filterwarnings("ignore::deepwell.fit.sampling.SamplingWarning")
 def test_posterior_intervals_run_end_to_end(tiny):
     desc = scenario_description(tiny)
     with open_client(n_workers=2, processes=False) as client:
-        res = calibrate(desc, 2, seed=3, sample=SampleOptions(n_steps=40, n_warmup=30,
+        res = calibrate(desc, 2, seed=3, sample=SamplerOptions(n_steps=40, n_warmup=30,
                                                               n_chains=2),
                         client=client, progress=False)
     assert res.mode == "posterior" and res.n_failed == 0
@@ -223,7 +223,7 @@ def test_a_resumed_calibration_equals_the_uninterrupted_one(tiny, command_run, t
     # A run killed after 4 finished trials (journal cut mid-line, as kill -9 can leave
     # it) is continued with resume=True; the 6 records must equal the first 6 of the
     # uninterrupted command run (trial i's seed does not depend on how it was run).
-    from deepwell.calibrate_journal import TrialJournal, journal_path
+    from deepwell.tools.journal import TrialJournal, journal_path
 
     desc = scenario_description(tiny)
     path = journal_path(tmp_path / "out")

@@ -1,4 +1,4 @@
-"""Checks of deepwell.compactness against published constants, worked numbers and scipy."""
+"""Checks of deepwell.results.compactness against published constants, worked numbers and scipy."""
 
 import json
 import math
@@ -10,7 +10,7 @@ from astropy import constants as const
 from astropy import units as u
 from scipy import stats
 
-from deepwell import compactness as cp
+from deepwell.results import compactness as cp
 
 AU_KM = const.au.to_value(u.km)
 M_EARTH_MSUN = (const.GM_earth / const.GM_sun).decompose().value  # IAU 2015 B3 nominal values

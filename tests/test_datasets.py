@@ -15,14 +15,16 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from deepwell.datasets import dataset_summary, datasets_from_args, parse_datasets
-from deepwell.effects import effects_from_args
-from deepwell.errors import SettingsError
-from deepwell.fit import build_model, fit_joint
-from deepwell.parameters import SHARED, internal_star_values
-from deepwell.settings import Settings, parse_settings
-from deepwell.simulate import write_scenario
-from deepwell.tables import read_observations
+from deepwell.core.errors import SettingsError
+from deepwell.core.parameters import SHARED
+from deepwell.fit.joint import build_model, fit_joint
+from deepwell.model.layout import internal_star_values
+from deepwell.results.datasets import dataset_summary
+from deepwell.tables.datasets import datasets_from_args, parse_datasets
+from deepwell.tables.effects import effects_from_args
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import Settings, parse_settings
+from deepwell.tools.simulate import write_scenario
 
 TRUE_MASS, TRUE_DIST = 2.6e6, 5200.0
 OFFSET = (3.0, -2.0)  # mas, added to imager-B

@@ -12,17 +12,17 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from deepwell.effect_summary import (
+from deepwell.fit.joint import fit_joint
+from deepwell.model.kernels.relativity import plummer_precession_per_orbit_rad
+from deepwell.results.effect_sizes import (
     extended_mass_limits,
     star_effect_sizes,
     truncated_gaussian_upper_limit,
 )
-from deepwell.effects import effects_from_args
-from deepwell.fit import fit_joint
-from deepwell.relativity import plummer_precession_per_orbit_rad
-from deepwell.settings import parse_settings
-from deepwell.simulate import write_scenario
-from deepwell.tables import read_observations
+from deepwell.tables.effects import effects_from_args
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import parse_settings
+from deepwell.tools.simulate import write_scenario
 
 # An invented nucleus: one tight star (16-yr, e = 0.88 around 4e6 Msun at 8 kpc)
 # with 0.05-mas interferometry around one pericentre, 0.5-mas imaging for 30 yr and
@@ -224,8 +224,8 @@ def test_limit_without_extended_mass_is_set_by_the_data_precision(relativistic):
 def test_keplerian_model_without_effects_is_unchanged(relativistic):
     # With every effect off the model is the plain Keplerian one (physics.md sect. 3):
     # no extra parameters and the same predictions as keplerian_track + frame terms.
-    from deepwell.fit import build_model
-    from deepwell.orbit import keplerian_track
+    from deepwell.fit.joint import build_model
+    from deepwell.model.kernels.orbit import keplerian_track
 
     settings = effects_from_args(parse_settings({}), newtonian=True)
     model = build_model(relativistic, settings)

@@ -6,10 +6,12 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from deepwell.fit import bounds, covariance, fit_joint, minimise
-from deepwell.parameters import SHARED, internal_star_values
-from deepwell.settings import Settings, parse_settings
-from deepwell.tables import read_observations
+from deepwell.core.parameters import SHARED
+from deepwell.fit.joint import fit_joint
+from deepwell.fit.least_squares import bounds, covariance, minimise
+from deepwell.model.layout import internal_star_values
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import Settings, parse_settings
 
 
 def truth_vector(model, folder):
@@ -114,8 +116,8 @@ def test_covariance_matches_inverse_hessian_of_chi2(small_fit):
 
 
 def test_frame_terms_without_frame_data_are_held_and_said(tmp_path):
-    from deepwell.effects import effects_from_args
-    from deepwell.simulate import write_scenario
+    from deepwell.tables.effects import effects_from_args
+    from deepwell.tools.simulate import write_scenario
     from tests.conftest import SMALL_SCENARIO
 
     desc = tmp_path / "d.toml"
@@ -136,7 +138,7 @@ def test_yearly_sampling_alias_is_resolved_jointly(tmp_path):
     # P/2 fit equally well (sampling alias, common practice); the joint refit must
     # reach the chi-square of a fit started at the truth (invented injection data,
     # relativistic as the fitter's default).
-    from deepwell.simulate import write_scenario
+    from deepwell.tools.simulate import write_scenario
 
     stars = {"al-1": (31.5, 0.3, 130.0, 220.0, 60.0, 2012.0),
              "al-2": (41.2, 0.2, 60.0, 140.0, 300.0, 2008.0),

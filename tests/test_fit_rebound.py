@@ -13,9 +13,9 @@ from scipy import stats
 
 rebound = pytest.importorskip("rebound")
 
-from deepwell.fit import fit_joint  # noqa: E402
-from deepwell.settings import Settings  # noqa: E402
-from deepwell.tables import read_observations  # noqa: E402
+from deepwell.fit.joint import fit_joint  # noqa: E402
+from deepwell.tables.observations import read_observations  # noqa: E402
+from deepwell.tables.settings import Settings  # noqa: E402
 
 # GM_sun in au^3/yr^2 from the IAU 2015 nominal value (astropy), Julian year.
 AU_M = 149_597_870_700.0  # IAU 2012 B2

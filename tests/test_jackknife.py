@@ -13,11 +13,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from deepwell.effects import effects_from_args
-from deepwell.jackknife import STAND_OUT_P, jackknife, plot_jackknife
-from deepwell.settings import Settings
-from deepwell.simulate import write_scenario
-from deepwell.tables import read_observations
+from deepwell.report.figures.jackknife import plot_jackknife
+from deepwell.results.jackknife import STAND_OUT_P, jackknife
+from deepwell.tables.effects import effects_from_args
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import Settings
+from deepwell.tools.simulate import write_scenario
 
 HEAD = textwrap.dedent("""
     name = "jackknife test nucleus"

@@ -6,7 +6,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from deepwell.kepler import compiled_kernel_available, solve_kepler, solve_kepler_numpy
+from deepwell.model.kernels.kepler import (
+    compiled_kernel_available,
+    solve_kepler,
+    solve_kepler_numpy,
+)
 
 ECCENTRICITIES = [0.0, 0.1, 0.5, 0.9, 0.99, 0.999, 0.9999]
 

@@ -11,12 +11,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from deepwell.sampling import LogPosterior
-from deepwell.sampling.backend import CheckpointMismatch
-from deepwell.sampling.convergence import autocorr_times
-from deepwell.sampling.gradient import WhitenedTarget
-from deepwell.sampling.hamiltonian import run_chain
-from deepwell.sampling.nuts import DualAveraging, initial_step_size, nuts_step
+from deepwell.fit.sampling import LogPosterior
+from deepwell.fit.sampling.backend import CheckpointMismatch
+from deepwell.fit.sampling.convergence import autocorr_times
+from deepwell.fit.sampling.gradient import WhitenedTarget
+from deepwell.fit.sampling.hamiltonian import run_chain
+from deepwell.fit.sampling.nuts import DualAveraging, initial_step_size, nuts_step
 from tests.test_sampling import _Crash, _CrashAfter, _tiny_orbit_problem
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
@@ -105,7 +105,7 @@ ANCHORED = {"mass": {"prior": {"mean": 5.1e6, "sigma": 1.0e5}},
 def _one_star(shared=None):
     """Sparse demo, first star only, at its true elements (scenario truth file),
     with its least-squares covariance there."""
-    from deepwell.fit import covariance
+    from deepwell.fit.least_squares import covariance
 
     res = _tiny_orbit_problem(KEPLER, shared=shared)
     target = LogPosterior(res, marginalise=True)
@@ -198,13 +198,18 @@ def test_state_map_picks_the_pericentre_epoch_nearest_the_fit_and_reports_the_wi
 
 
 def test_state_map_obeys_the_two_body_integrals():
-    """Position and velocity from the elements (deepwell.orbit.kepler_state)
+    """Position and velocity from the elements (deepwell.model.kernels.orbit.kepler_state)
     against the textbook integrals of the two-body problem, vis-viva
     v^2 = GM (2/r - 1/a) and |r x v| = sqrt(GM a (1 - e^2)) (e.g. Murray &
     Dermott 1999, Solar System Dynamics, chapter 2, from memory), with GM from
     Kepler's third law in angular units; and elements_from_state inverts it
     for random orbits (to 1e-10)."""
-    from deepwell.orbit import a_from_period, elements_from_state, gm_angular, kepler_state
+    from deepwell.model.kernels.orbit import (
+        a_from_period,
+        elements_from_state,
+        gm_angular,
+        kepler_state,
+    )
 
     rng = np.random.default_rng(11)
     n = 500
@@ -239,7 +244,7 @@ def test_nuts_in_state_coordinates_matches_an_emcee_ensemble_on_one_orbit():
     nothing of deepwell's coordinates or Jacobians).  Means must agree within
     0.3 posterior standard deviations and widths within 20% (Monte Carlo
     error of a few hundred effective draws each, common practice)."""
-    from deepwell.sampling import run_ensemble
+    from deepwell.fit.sampling import run_ensemble
 
     target, cov = _one_star(ANCHORED)
     centre = target.base[target.sampled]
@@ -258,12 +263,12 @@ def test_nuts_in_state_coordinates_matches_an_emcee_ensemble_on_one_orbit():
 
 
 def test_adapted_metric_takes_the_widths_of_the_warm_up_draws():
-    """Warm-up metric (deepwell.sampling.hamiltonian.adapted_cov): draws from a
+    """Warm-up metric (deepwell.fit.sampling.hamiltonian.adapted_cov): draws from a
     known Gaussian 30x wider than the prior covariance in two coordinates; the
     adapted variances must match the true ones (sample-variance accuracy
     ~ sqrt(2/n), common practice: within 10% for n = 4000) and the matrix stays
     positive definite."""
-    from deepwell.sampling.hamiltonian import adapted_cov
+    from deepwell.fit.sampling.hamiltonian import adapted_cov
 
     rng = np.random.default_rng(4)
     prior = np.eye(5)

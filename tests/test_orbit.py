@@ -7,8 +7,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from deepwell.constants import GM_SUN_AU3_PER_YR2
-from deepwell.orbit import (
+from deepwell.core.constants import GM_SUN_AU3_PER_YR2
+from deepwell.model.kernels.orbit import (
     elements_from_thiele_innes,
     keplerian_track,
     period_from_a,
@@ -179,7 +179,7 @@ def test_keplerian_track_matches_rebound_ias15_over_one_period():
     distance = 1000.0  # pc, so 1 mas = 1 au
     track = keplerian_track(times, a_au * 1000.0 / distance, ecc, inc, node, omega,
                             t_peri, period, distance)
-    from deepwell.constants import KMS_PER_AU_PER_YR
+    from deepwell.core.constants import KMS_PER_AU_PER_YR
 
     scale = distance / 1000.0
     pos = np.column_stack([track.north, track.east, track.z]) * scale

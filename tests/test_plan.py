@@ -11,12 +11,17 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from deepwell.effects import effects_from_args
-from deepwell.errors import InputError, OutputError
-from deepwell.fit import fit_joint, numerical_jacobian
-from deepwell.plan import (
+from deepwell.cli.plan import add_plan_parser, run_plan
+from deepwell.core.errors import InputError, OutputError
+from deepwell.fit.jacobian import numerical_jacobian
+from deepwell.fit.joint import fit_joint
+from deepwell.report.writer import write_report
+from deepwell.results import analyse
+from deepwell.tables.effects import effects_from_args
+from deepwell.tables.observations import Observations, read_observations
+from deepwell.tables.settings import Settings
+from deepwell.tools.plan import (
     PlanSettings,
-    add_plan_parser,
     candidate_epochs,
     draw_vectors,
     fisher_forecast,
@@ -26,12 +31,8 @@ from deepwell.plan import (
     next_passages,
     parse_months,
     predict_grid,
-    run_plan,
 )
-from deepwell.report import write_report
-from deepwell.settings import Settings
-from deepwell.simulate import write_scenario
-from deepwell.tables import Observations, read_observations
+from deepwell.tools.simulate import write_scenario
 
 NEWTONIAN = "\n[effects]\nromer = false\nredshift = 0.0\nprecession = 0.0\n"
 
@@ -436,7 +437,7 @@ def _digests(folder):
 def test_command_writes_plan_folder_and_refuses_to_overwrite(newtonian_fit, tmp_path):
     res, _ = newtonian_fit
     report = tmp_path / "report"
-    write_report(res, report, figures=False)
+    write_report(res, report, analyse(res), figures=False)
     before = _digests(report)
     parser = argparse.ArgumentParser()
     add_plan_parser(parser.add_subparsers())
@@ -490,7 +491,7 @@ def test_posterior_samples_are_used_and_checked(newtonian_fit, tmp_path):
 def test_all_year_observability_gives_one_candidate_per_year():
     # without an observability window every Julian year is one season (common practice:
     # one observing campaign per year)
-    from deepwell.plan import candidate_epochs
+    from deepwell.tools.plan import candidate_epochs
 
     t = candidate_epochs(2025.0, 2035.0)
     assert len(t) == 10

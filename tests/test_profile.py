@@ -1,4 +1,7 @@
-"""Checks of deepwell.profile (enclosed-mass profile) and its figure; invented data only."""
+"""Checks of the enclosed-mass profile (deepwell.results.enclosed) and its figure.
+
+Invented data only.
+"""
 
 import math
 from pathlib import Path
@@ -10,15 +13,20 @@ from astropy import units as u
 from astropy.table import Table
 from scipy import integrate
 
-from deepwell import profile as pr
-from deepwell.compactness import cluster_lifetimes
-from deepwell.constants import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
-from deepwell.errors import InputError
-from deepwell.fit import fit_joint
-from deepwell.profile_figure import plot_enclosed_mass
-from deepwell.relativity import integrate_orbits, osculating_state, plummer_enclosed_mass
-from deepwell.settings import parse_settings
-from deepwell.tables import read_observations
+from deepwell.core.constants import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
+from deepwell.core.errors import InputError
+from deepwell.fit.joint import fit_joint
+from deepwell.model.kernels.relativity import (
+    integrate_orbits,
+    osculating_state,
+    plummer_enclosed_mass,
+)
+from deepwell.report.figures.enclosed import plot_enclosed_mass
+from deepwell.results import enclosed as pr
+from deepwell.results.compactness import cluster_lifetimes
+from deepwell.tables import constraints
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import parse_settings
 
 RICH = Path(__file__).resolve().parents[1] / "scenarios" / "rich"
 # The demo scenarios are simulated without relativistic effects (their [effects] table),
@@ -79,7 +87,8 @@ def _plummer_scenario(folder, rng, ecc=0.03, pos_err=0.05, vel_err=5.0, n_epochs
 
 
 def test_plummer_scenario_per_star_masses_rise_by_the_injected_enclosed_mass(tmp_path):
-    # Injection-recovery: orbits integrated with deepwell.pn (Newtonian, f_sp = 0) in a point
+    # Injection-recovery: orbits integrated with deepwell.model.kernels.post_newtonian
+    # (Newtonian, f_sp = 0) in a point
     # mass plus a Plummer sphere; the expected rise is the Plummer enclosed mass
     # M_ext r^3/(r^2+b^2)^(3/2) (Plummer 1911; physics.md sect. 7) at the stars' radii.
     # Positions relative to the mass, so the frame terms are fixed at 0; the distance is
@@ -185,7 +194,7 @@ def test_external_constraints_are_read_with_comments_and_labels(tmp_path):
     # Invented constraints; expected values are the numbers written into the file.
     path = _csv(tmp_path, "# invented\nradius_pc,mass,mass_err,label\n\n0.5,3.6e6,2e5,gas\n"
                           "1.2,4.5e6,4e5,stars\n")
-    ext = pr.read_external_constraints(path)
+    ext = constraints.read_external_constraints(path)
     np.testing.assert_allclose(ext.mass, [3.6e6, 4.5e6], rtol=0)
     assert ext.radius_au[0] == pytest.approx((0.5 * u.pc).to_value(u.au), rel=1e-12)
     assert ext.labels == ("gas", "stars")
@@ -205,7 +214,7 @@ def test_external_constraint_errors_name_file_line_and_column(tmp_path, text, li
     # Expected line numbers counted by hand in the invented files (first line is 1).
     path = _csv(tmp_path, text)
     with pytest.raises(InputError) as info:
-        pr.read_external_constraints(path)
+        constraints.read_external_constraints(path)
     err = info.value
     assert (err.file, err.row, err.column) == (str(path), line, column)
     assert words in str(err) and str(path) in str(err)
@@ -227,7 +236,7 @@ def test_profile_table_round_trips_through_ecsv_with_units(rich_profile, tmp_pat
 
 def test_enclosed_mass_figure_writes_pdf_and_200_dpi_png(rich_profile, tmp_path):
     # Matplotlib's definition of dpi: 6.4 x 5.6 inch at 200 dpi is 1280 x 1120 pixels.
-    ext = pr.read_external_constraints(_csv(tmp_path, "radius_pc,mass,mass_err\n"
+    ext = constraints.read_external_constraints(_csv(tmp_path, "radius_pc,mass,mass_err\n"
                                                       "0.5,3.6e6,2e5\n1.2,4.5e6,4e5\n"))
     prof = pr.EnclosedMassProfile(**{**rich_profile.__dict__, "external": ext})
     files = plot_enclosed_mass(prof, tmp_path / "enclosed_mass")

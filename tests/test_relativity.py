@@ -1,4 +1,4 @@
-"""Tests of the relativistic kernels (deepwell.relativity, deepwell.pn).
+"""Tests of the relativistic kernels (deepwell.model.kernels: relativity, post_newtonian).
 
 Every check compares with a value from outside deepwell; the source is named
 beside it.  physics.md tags ([verified], [memory], [computed]) are carried over.
@@ -10,9 +10,9 @@ from astropy import constants as const
 from scipy.integrate import solve_ivp
 from scipy.optimize import brentq
 
-from deepwell.constants import C_AU_PER_YR, GM_SUN_AU3_PER_YR2, KEPLER_K, KMS_PER_AU_PER_YR
-from deepwell.orbit import keplerian_track
-from deepwell.relativity import (
+from deepwell.core.constants import C_AU_PER_YR, GM_SUN_AU3_PER_YR2, KEPLER_K, KMS_PER_AU_PER_YR
+from deepwell.model.kernels.orbit import keplerian_track
+from deepwell.model.kernels.relativity import (
     effect_sizes,
     emission_epochs,
     integrate_orbits,

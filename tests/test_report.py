@@ -18,15 +18,16 @@ from astropy import constants as const
 from astropy import units as u
 from astropy.table import Table
 
-from deepwell.errors import OutputError
-from deepwell.model import JointModel
-from deepwell.outdir import MANIFEST, install_output, prepare_output, staged_output
-from deepwell.parameters import internal_star_values
-from deepwell.report import compactness_choice, save_report, summary_dict, write_report
-from deepwell.report_tables import format_value_error, star_numbers
-from deepwell.results import FitResult, physical_labels, physical_vector
-from deepwell.settings import Settings
-from deepwell.tables import read_observations
+from deepwell.core.errors import OutputError
+from deepwell.fit.result import FitResult, physical_labels, physical_vector
+from deepwell.model.joint import JointModel
+from deepwell.model.layout import internal_star_values
+from deepwell.report.outdir import MANIFEST, install_output, prepare_output, staged_output
+from deepwell.report.tables import format_value_error, star_numbers
+from deepwell.report.writer import compactness_choice, save_report, summary_dict, write_report
+from deepwell.results import analyse
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import Settings
 
 RICH = Path(__file__).resolve().parents[1] / "scenarios" / "rich"
 STARS = ("br-01", "br-04", "br-11", "br-12")
@@ -35,7 +36,7 @@ MASS_SIGMA_FRAC, DIST_SIGMA_FRAC, RHO = 0.01, 0.008, 0.9  # chosen covariance of
 
 
 def _jacobian(func, vec, rel=1e-6):
-    """Central differences, one parameter at a time (independent of deepwell.fit)."""
+    """Central differences, one parameter at a time (independent of deepwell.fit.least_squares)."""
     cols = []
     for i in range(vec.size):
         h = rel * max(abs(vec[i]), 1e-3)
@@ -79,7 +80,7 @@ def result():
 @pytest.fixture(scope="module")
 def report_dir(result, tmp_path_factory):
     folder = tmp_path_factory.mktemp("report")
-    write_report(result, folder, figures=False)
+    write_report(result, folder, analyse(result), figures=False)
     return folder
 
 
@@ -92,7 +93,7 @@ STAR_UNITS = {"period": "yr", "e": "", "a": "mas", "inc": "deg", "node": "deg",
 
 def test_summary_has_the_contract_keys_and_astropy_units(report_dir):
     data = json.loads((report_dir / "summary.json").read_text())
-    # effect sizes and the enclosed-mass profile are computed by write_report itself;
+    # effect sizes and the enclosed-mass profile are always computed by analyse();
     # posterior, sampling, extended-mass and jackknife entries appear only when given;
     # the per-data-set summary and the list of points beyond 4 sigma are always there
     assert set(data) == {"parameters", "stars", "fit", "mass_distance", "reference_epoch",
@@ -384,7 +385,7 @@ def test_manifest_pointing_outside_the_folder_is_refused(tmp_path):
 
 # ------------------------------------------------------------------ figures (once)
 def test_full_report_with_figures(result, tmp_path):
-    final = save_report(result, tmp_path / "report")
+    final = save_report(result, tmp_path / "report", analyse(result))
     figs = final / "figures"
     stems = ["sky"] + [f"star_{s}" for s in STARS] + ["enclosed_mass"]
     for stem in stems:

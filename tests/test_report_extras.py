@@ -8,30 +8,32 @@ stated tolerance.
 
 import json
 import math
+from dataclasses import replace
 from types import SimpleNamespace
 
 import numpy as np
 import pytest
 from astropy.table import Table
 
-from deepwell.effect_summary import star_effect_sizes
-from deepwell.effects import effects_from_args
-from deepwell.figures import _metadata
-from deepwell.figures_effects import effect_figure_jobs, precession_curves, redshift_curves
-from deepwell.figures_posterior import (
+from deepwell.fit.joint import fit_joint
+from deepwell.fit.sampling import SamplerOptions, SamplingWarning, sample_posterior
+from deepwell.report.figures.effects import effect_figure_jobs, precession_curves, redshift_curves
+from deepwell.report.figures.posterior import (
     CONTOUR_LEVELS,
     corner_figure,
     mass_distance_data,
     mass_distance_figure,
 )
-from deepwell.fit import fit_joint
-from deepwell.profile import enclosed_mass_profile
-from deepwell.report import compactness_choice, write_report
-from deepwell.report_sections import OSCULATING_STATEMENT
-from deepwell.report_tables import format_asymmetric
-from deepwell.sampling import SamplingWarning, sample_posterior
-from deepwell.settings import Settings
-from deepwell.tables import read_observations
+from deepwell.report.figures.style import _metadata
+from deepwell.report.sections import OSCULATING_STATEMENT
+from deepwell.report.tables import format_asymmetric
+from deepwell.report.writer import compactness_choice, write_report
+from deepwell.results import analyse
+from deepwell.results.effect_sizes import star_effect_sizes
+from deepwell.results.enclosed import enclosed_mass_profile
+from deepwell.tables.effects import effects_from_args
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import Settings
 
 PDF_MAGIC = b"%PDF"  # PDF 1.7 (ISO 32000-1) sect. 7.5.2
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG (ISO/IEC 15948) sect. 5.2
@@ -64,7 +66,8 @@ def rel_sizes(rel_fit):
 @pytest.fixture(scope="module")
 def rel_report(rel_fit, rel_sizes, tmp_path_factory):
     folder = tmp_path_factory.mktemp("rel")
-    write_report(rel_fit, folder, figures=False, effect_sizes=rel_sizes)
+    write_report(rel_fit, folder, replace(analyse(rel_fit), effect_sizes=rel_sizes),
+                 figures=False)
     return folder
 
 
@@ -78,14 +81,15 @@ def posterior(newt_fit):
     """A deliberately short NUTS run (30 draws < 50 autocorrelation times of at
     least one transition): must say NOT CONVERGED."""
     with pytest.warns(SamplingWarning, match="NOT CONVERGED"):
-        return sample_posterior(newt_fit, n_steps=30, n_warmup=20, n_ensembles=2,
-                                progress=False, processes=1)
+        return sample_posterior(newt_fit, SamplerOptions(n_steps=30, n_warmup=20, n_chains=2,
+                                                         progress=False, processes=1))
 
 
 @pytest.fixture(scope="module")
 def post_report(newt_fit, posterior, tmp_path_factory):
     folder = tmp_path_factory.mktemp("post")
-    write_report(newt_fit, folder, figures=False, posterior=posterior, extended_limits=LIMITS)
+    write_report(newt_fit, folder, replace(analyse(newt_fit, posterior=posterior),
+                                           extended_limits=LIMITS), figures=False)
     return folder
 
 

@@ -15,13 +15,14 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from deepwell.datasets import datasets_from_args
-from deepwell.effects import effects_from_args
-from deepwell.fit import build_model, fit_joint
-from deepwell.robust import mixture_rows, outlier_table
-from deepwell.settings import Settings
-from deepwell.simulate import write_scenario
-from deepwell.tables import read_observations
+from deepwell.fit.joint import build_model, fit_joint
+from deepwell.model.likelihood import mixture_rows
+from deepwell.results.outliers import outlier_table
+from deepwell.tables.datasets import datasets_from_args
+from deepwell.tables.effects import effects_from_args
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import Settings
+from deepwell.tools.simulate import write_scenario
 from tests.test_datasets import DESCRIPTION, TRUE_DIST, TRUE_MASS
 
 SINGLE = DESCRIPTION[:DESCRIPTION.index("[[campaigns]]")].replace("seed = 11", "seed = 3") + """

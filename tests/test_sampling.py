@@ -13,20 +13,22 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from deepwell.fit import build_model, fit_joint
-from deepwell.parameters import EXTRA, internal_star_values
-from deepwell.sampling import (
+from deepwell.core.parameters import EXTRA
+from deepwell.fit.joint import build_model, fit_joint
+from deepwell.fit.sampling import (
     CheckpointMismatch,
     LogPosterior,
+    SamplerOptions,
     SamplingWarning,
     gelman_rubin,
     run_ensemble,
     sample_posterior,
     split_rhat,
 )
-from deepwell.sampling.convergence import autocorr_times, quantile_summary
-from deepwell.settings import parse_settings
-from deepwell.tables import read_observations
+from deepwell.fit.sampling.convergence import autocorr_times, quantile_summary
+from deepwell.model.layout import internal_star_values
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import parse_settings
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 
@@ -263,8 +265,8 @@ def test_short_run_on_sparse_demo_says_not_converged_and_summarises_correctly():
     fit = fit_joint(obs, parse_settings({"effects": {"romer": False, "redshift": "off",
                                                      "precession": False}}))
     with pytest.warns(SamplingWarning, match="NOT CONVERGED"):
-        post = sample_posterior(fit, n_steps=120, progress=False, processes=1,
-                                sampler="ensemble")
+        post = sample_posterior(fit, SamplerOptions(n_steps=120, progress=False, processes=1,
+                                                    sampler="ensemble"))
     assert post.statement.startswith("NOT CONVERGED")
     assert "n_steps=120" in post.statement
     assert not post.converged
@@ -285,8 +287,8 @@ def test_nuts_report_names_the_stars_moved_in_position_and_velocity():
     fit = fit_joint(obs, parse_settings({"effects": {"romer": False, "redshift": "off",
                                                      "precession": False}}))
     with pytest.warns(SamplingWarning, match="NOT CONVERGED"):
-        post = sample_posterior(fit, n_steps=5, n_warmup=10, n_ensembles=2, progress=False,
-                                processes=1)
+        post = sample_posterior(fit, SamplerOptions(n_steps=5, n_warmup=10, n_chains=2,
+                                                    progress=False, processes=1))
     note = next(t for t in post.diagnostics if t.startswith("coordinates:"))
     for star in fit.model.stars:
         epochs = np.concatenate([obs.positions.loc[obs.positions.star == star, "epoch"],
@@ -321,13 +323,14 @@ def test_a_time_budget_that_ends_in_the_warm_up_is_a_clear_error():
     """No draws, no summary: a run whose --max-time ends during the NUTS warm-up
     must raise one clear error (a user-facing DeepwellError), not a traceback
     from the diagnostics (common practice: never summarise an empty chain)."""
-    from deepwell.errors import DeepwellError
-    from deepwell.sampling import SamplingError
+    from deepwell.core.errors import DeepwellError
+    from deepwell.fit.sampling import SamplingError
 
     obs = read_observations(SCENARIOS / "sparse")
     fit = fit_joint(obs, parse_settings({"effects": {"romer": False, "redshift": "off",
                                                      "precession": False}}))
     with pytest.raises(SamplingError, match="fewer than 4 kept draws") as info:
-        sample_posterior(fit, max_time=0.05, progress=False, processes=1, n_ensembles=2)
+        sample_posterior(fit, SamplerOptions(max_time=0.05, progress=False, processes=1,
+                                             n_chains=2))
     assert isinstance(info.value, DeepwellError)
     assert "--max-time" in str(info.value)

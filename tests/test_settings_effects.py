@@ -6,9 +6,9 @@ written in the test's own settings text (TOML syntax: toml.io v1.0.0).
 
 import pytest
 
-from deepwell.effects import Effects, effects_from_args, parse_effects
-from deepwell.errors import SettingsError
-from deepwell.settings import Settings, load_settings, parse_settings
+from deepwell.core.errors import SettingsError
+from deepwell.tables.effects import Effects, effects_from_args, parse_effects
+from deepwell.tables.settings import Settings, load_settings, parse_settings
 
 
 def test_defaults_are_romer_exact_redshift_and_precession_with_unit_strengths():

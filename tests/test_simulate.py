@@ -1,4 +1,4 @@
-"""Tests of the scenario simulator (deepwell.simulate).
+"""Tests of the scenario simulator (deepwell.tools.simulate).
 
 The noiseless model used here is written from scratch in this file (explicit
 rotation matrices, a Newton solver for Kepler's equation, the period from the
@@ -14,11 +14,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from deepwell.errors import OutputError, SettingsError
-from deepwell.simulate import (
+from deepwell.cli import main
+from deepwell.core.errors import OutputError, SettingsError
+from deepwell.tools.simulate import (
     OUTPUT_FILES,
     load_description,
-    main,
     simulate,
     truth_parameters,
     write_scenario,
@@ -103,7 +103,9 @@ def _write(tmp_path, text, name="d.toml"):
 
 
 def _independent_model(t, star, mass, distance):
-    """East, north (mas) and v_z (km/s) from explicit rotations (independent of deepwell.orbit).
+    """East, north (mas) and v_z (km/s) from explicit rotations.
+
+    Independent of deepwell.model.kernels.orbit.
 
     Position in the orbital plane (xi toward pericentre, eta 90 deg ahead in the
     direction of motion) rotated by R = Rz(node) Rx(inc) Rz(peri_arg) into
@@ -294,9 +296,9 @@ def test_replace_overwrites_only_own_files(tmp_path):
     assert len(list(tmp_path.iterdir())) == 2  # d.toml and out: no temporary folder left
 
 
-def test_module_entry_point_writes_new_folder(tmp_path):
+def test_simulate_command_writes_new_folder(tmp_path):
     desc = _write(tmp_path, BASE)
-    assert main([str(desc), "--out", str(tmp_path / "new")]) == 0
-    assert main([str(desc), "--out", str(tmp_path / "new")]) == 2  # now non-empty
+    assert main(["simulate", str(desc), "--out", str(tmp_path / "new")]) == 0
+    assert main(["simulate", str(desc), "--out", str(tmp_path / "new")]) == 2  # now non-empty
     velocities = pd.read_csv(tmp_path / "new" / "velocities.csv")
     assert len(velocities) == len(simulate(load_description(desc)).velocities)

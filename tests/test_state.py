@@ -3,18 +3,19 @@
 import numpy as np
 import pytest
 
-from deepwell.errors import InputError
-from deepwell.fit import fit_joint
-from deepwell.report import write_report
-from deepwell.settings import Settings
-from deepwell.state import load_fit
-from deepwell.tables import read_observations
+from deepwell.core.errors import InputError
+from deepwell.fit.joint import fit_joint
+from deepwell.report.writer import write_report
+from deepwell.results import analyse
+from deepwell.results.saved_fit import load_fit
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import Settings
 
 
 def test_saved_fit_rebuilds_values_and_covariance(small_scenario, tmp_path):
     obs = read_observations(small_scenario)
     res = fit_joint(obs, Settings())
-    write_report(res, tmp_path / "rep", figures=False)
+    write_report(res, tmp_path / "rep", analyse(res), figures=False)
     again = load_fit(tmp_path / "rep")
     # the rebuilt fit is the same computation on the same numbers: equal to 1e-9
     np.testing.assert_allclose(again.values, res.values, rtol=1e-12)
@@ -28,7 +29,7 @@ def test_changed_table_refuses_the_saved_fit(small_scenario, tmp_path):
     scen = tmp_path / "scen"
     shutil.copytree(small_scenario, scen)
     res = fit_joint(read_observations(scen), Settings())
-    write_report(res, tmp_path / "rep", figures=False)
+    write_report(res, tmp_path / "rep", analyse(res), figures=False)
     with (scen / "velocities.csv").open("a") as fh:
         fh.write("t-1,2023.5,100.0,15.0,spectra\n")
     with pytest.raises(InputError, match="changed since the fit"):

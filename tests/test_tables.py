@@ -1,4 +1,4 @@
-"""Tests of deepwell.tables: reading and validating the input tables."""
+"""Tests of deepwell.tables.observations: reading and validating the input tables."""
 
 import hashlib
 import warnings
@@ -6,8 +6,8 @@ import warnings
 import numpy as np
 import pytest
 
-from deepwell.errors import InputError
-from deepwell.tables import (
+from deepwell.core.errors import InputError
+from deepwell.tables.observations import (
     DataWarning,
     Observations,
     read_observations,

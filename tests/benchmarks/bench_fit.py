@@ -17,10 +17,11 @@ import time
 t0 = time.perf_counter()
 import numpy as np  # noqa: E402
 
-from deepwell.fit import bounds, build_model, covariance, minimise  # noqa: E402
-from deepwell.settings import Settings  # noqa: E402
-from deepwell.start import find_start  # noqa: E402
-from deepwell.tables import read_observations  # noqa: E402
+from deepwell.fit.joint import build_model  # noqa: E402
+from deepwell.fit.least_squares import bounds, covariance, minimise  # noqa: E402
+from deepwell.fit.start import find_start  # noqa: E402
+from deepwell.tables.observations import read_observations  # noqa: E402
+from deepwell.tables.settings import Settings  # noqa: E402
 
 t_import = time.perf_counter() - t0
 
@@ -54,14 +55,15 @@ def main(folder="scenarios/rich"):
     covariance(model, vec, free)
     times["uncertainties"] = time.perf_counter() - t
 
-    from deepwell.figures import write_figures
-    from deepwell.fit import fit_joint
-    from deepwell.report import write_report
+    from deepwell.fit.joint import fit_joint
+    from deepwell.report.figures.gallery import write_figures
+    from deepwell.report.writer import write_report
+    from deepwell.results import analyse
 
     result = fit_joint(obs, settings)
     with tempfile.TemporaryDirectory() as tmp:
         t = time.perf_counter()
-        write_report(result, tmp, figures=False)
+        write_report(result, tmp, analyse(result), figures=False)
         times["report (no figures)"] = time.perf_counter() - t
         t = time.perf_counter()
         write_figures(result, tmp)

@@ -21,12 +21,13 @@ from pathlib import Path
 
 import numpy as np
 
-from deepwell.effects import effects_from_args
-from deepwell.fit import bounds, build_model, fit_joint, minimise
-from deepwell.settings import parse_settings
-from deepwell.simulate import write_scenario
-from deepwell.start import find_start
-from deepwell.tables import read_observations
+from deepwell.fit.joint import build_model, fit_joint
+from deepwell.fit.least_squares import bounds, minimise
+from deepwell.fit.start import find_start
+from deepwell.tables.effects import effects_from_args
+from deepwell.tables.observations import read_observations
+from deepwell.tables.settings import parse_settings
+from deepwell.tools.simulate import write_scenario
 
 RICH = Path(__file__).resolve().parents[2] / "scenarios" / "rich" / "description.toml"
 

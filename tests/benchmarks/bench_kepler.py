@@ -36,8 +36,12 @@ def main(argv=None):
     args = parser.parse_args(argv)
 
     start = time.perf_counter()
-    from deepwell.kepler import compiled_kernel_available, solve_kepler, solve_kepler_numpy
-    from deepwell.orbit import keplerian_track
+    from deepwell.model.kernels.kepler import (
+        compiled_kernel_available,
+        solve_kepler,
+        solve_kepler_numpy,
+    )
+    from deepwell.model.kernels.orbit import keplerian_track
 
     solve_kepler(np.linspace(0.0, 1.0, 8), 0.5)
     first_call = time.perf_counter() - start

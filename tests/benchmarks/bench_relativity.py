@@ -12,9 +12,9 @@ import timeit
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from deepwell.constants import C_AU_PER_YR, GM_SUN_AU3_PER_YR2, KEPLER_K
-from deepwell.orbit import keplerian_track
-from deepwell.relativity import integrate_orbits, osculating_state, pn_track
+from deepwell.core.constants import C_AU_PER_YR, GM_SUN_AU3_PER_YR2, KEPLER_K
+from deepwell.model.kernels.orbit import keplerian_track
+from deepwell.model.kernels.relativity import integrate_orbits, osculating_state, pn_track
 
 MASS, DIST = 4e6, 8000.0
 

@@ -40,13 +40,13 @@ def main(argv=None):
     parser.add_argument("--chains", type=int, default=4, help="NUTS chains (2 at a time)")
     args = parser.parse_args(argv)
 
-    from deepwell.fit import fit_joint
-    from deepwell.sampling import LogPosterior, run_ensemble, sample_posterior
-    from deepwell.sampling.convergence import RUN_TAUS, autocorr_times, burn_in
-    from deepwell.sampling.gradient import WhitenedTarget
-    from deepwell.sampling.posterior import start_positions
-    from deepwell.settings import parse_settings
-    from deepwell.tables import read_observations
+    from deepwell.fit.joint import fit_joint
+    from deepwell.fit.sampling import LogPosterior, SamplerOptions, run_ensemble, sample_posterior
+    from deepwell.fit.sampling.convergence import RUN_TAUS, autocorr_times, burn_in
+    from deepwell.fit.sampling.gradient import WhitenedTarget
+    from deepwell.fit.sampling.posterior import start_positions
+    from deepwell.tables.observations import read_observations
+    from deepwell.tables.settings import parse_settings
 
     effects = {"romer": False, "redshift": "off", "precession": False} if args.newtonian else {}
     settings = parse_settings({"effects": effects})
@@ -61,8 +61,8 @@ def main(argv=None):
     start = time.perf_counter()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        post = sample_posterior(result, progress=False, max_time=args.max_time, processes=2,
-                                n_ensembles=args.chains)
+        post = sample_posterior(result, SamplerOptions(progress=False, max_time=args.max_time,
+                                                       processes=2, n_chains=args.chains))
     wall = time.perf_counter() - start
     ess = post.ess
     k = shared[int(np.argmin(ess[shared]))]

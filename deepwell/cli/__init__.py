@@ -1,0 +1,5 @@
+"""The command line: one module per sub-command, gathered by :mod:`.app`."""
+
+from .app import main
+
+__all__ = ["main"]

@@ -1,0 +1,8 @@
+"""Fitting the joint model: automatic start, least squares, outliers, result, posterior sampling."""
+
+from .joint import build_model, fit_joint
+from .result import FitResult, FitWarning, assemble_result
+from .sampling import PosteriorResult, sample_posterior
+
+__all__ = ["fit_joint", "build_model", "FitResult", "FitWarning", "assemble_result",
+           "sample_posterior", "PosteriorResult"]

@@ -1,0 +1,41 @@
+"""How well the data cover an orbit, and the quality rules built on it (one place).
+
+The fitter uses the coverage rule to pick stars for a second start search,
+the results use all of them to flag poorly constrained orbits, and the report
+quotes them; every threshold is defined here only.
+"""
+
+import numpy as np
+
+__all__ = ["POOR_COVERAGE", "POOR_PERIOD_ERROR", "GOOD_RPERI_ERROR", "POOR_REL_SIGMA",
+           "POOR_REDUCED_CHI2", "phase_coverage"]
+
+#: An orbit whose data span less than this fraction of it (in mean anomaly) is
+#: a partial arc: linear errors may understate the real uncertainty (common practice).
+POOR_COVERAGE = 0.5
+#: A relative period error above this marks a poorly constrained orbit.
+POOR_PERIOD_ERROR = 0.20
+#: A pericentre distance known better than this (relative) counts in the compactness bound.
+GOOD_RPERI_ERROR = 0.20
+#: A per-star mass with sigma/M above this is flagged in the enclosed-mass profile.
+POOR_REL_SIGMA = 0.2
+#: A star fitting worse than this reduced chi-square is searched again (periods, start).
+POOR_REDUCED_CHI2 = 2.0
+
+
+def phase_coverage(model, vec, k):
+    """Fraction of star k's orbit (in mean anomaly) spanned by its position epochs.
+
+    One minus the largest gap between the orbital phases of the epochs, so a
+    complete orbit gives 1 and a short arc gives roughly (span / period).
+    """
+    el = model.layout.elements(vec)
+    t = model.pos.t[model.pos.star == k]
+    if t.size < 2:
+        return 0.0
+    period = el["period"][k]
+    if np.ptp(t) >= period:
+        phase = np.sort(np.mod((t - el["t_peri"][k]) / period, 1.0))
+        gaps = np.diff(np.concatenate([phase, [phase[0] + 1.0]]))
+        return float(1.0 - gaps.max())
+    return float(np.ptp(t) / period)

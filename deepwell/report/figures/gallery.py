@@ -1,0 +1,86 @@
+"""The figure set of a fit report: which figures are drawn, their captions, and saving them."""
+
+from pathlib import Path
+
+import matplotlib
+
+from .effects import effect_figure_jobs
+from .orbits import figure_name, sky_figure, star_figure
+from .posterior import corner_figure, mass_distance_figure, predictive_draws
+from .style import FORMATS, STYLE, save_figure
+
+__all__ = ["write_figures"]
+
+
+def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=None):
+    """Write the sky figure and one figure per star into ``folder``.
+
+    Parameters
+    ----------
+    result : deepwell.results.FitResult
+    folder : str or Path
+        Created if missing.
+    formats : tuple of str, optional
+        File formats; PDF is vector, PNG uses STYLE["savefig.dpi"] (200).
+    posterior : deepwell.sampling.PosteriorResult, optional
+        Adds posterior-predictive orbits and bands, a corner plot of the
+        shared parameters (``corner``) and the mass-distance posterior
+        (``mass_distance``).
+    effect_sizes : dict, optional
+        From :func:`deepwell.effect_summary.star_effect_sizes`: adds the
+        redshift and precession figures of the stars where the effect exceeds
+        the errors (see :func:`deepwell.figures_effects.effect_figure_jobs`).
+
+    Returns
+    -------
+    dict
+        Figure stem -> {"caption": str, "files": list of Path}; the sky figure is ``sky``.
+    """
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    out = {}
+    draws = None
+    band = ""
+    if posterior is not None and tuple(posterior.internal_names) == tuple(
+            result.model.layout.names()):
+        draws = predictive_draws(posterior)
+        band = (f" Thin lines: orbits of {len(draws)} posterior draws (posterior-predictive "
+                "spread).")
+    jobs = [("sky", lambda: sky_figure(result, draws),
+             "All orbits on the sky, centred on the mass (black cross). Frame-relative positions "
+             "have the fitted reference-point drift subtracted, so every data set is "
+             "shown relative to the mass; lines are the fitted orbits. East is to the left."
+             + band)]
+    for star in result.model.stars:
+        jobs.append((figure_name(star), lambda s=star: star_figure(result, s, draws),
+                     f"Star {star}: sky track relative to the mass (left; black cross: the "
+                     "mass, open circle: pericentre), position residuals and, if measured, "
+                     "radial velocities with their residuals (right). Error bars are the "
+                     "stated 1-sigma errors. The model lines are the best (least-squares) fit."
+                     + (band + " Shaded: 68% band (16th to 84th percentile) of the radial "
+                        "velocity over the same draws." if draws is not None else "")))
+    if effect_sizes is not None:
+        jobs += effect_figure_jobs(result, effect_sizes)
+    if posterior is not None:
+        jobs += _posterior_jobs(result, posterior)
+    with matplotlib.rc_context(STYLE):
+        for stem, build, caption in jobs:
+            out[stem] = {"caption": caption, "files": save_figure(build(), folder, stem, formats)}
+    return out
+
+
+def _posterior_jobs(result, posterior):
+    shared = list(result.model.layout.shared_names)
+    lsq = ((result.value("mass"), result.sigma("mass")),
+           (result.value("distance"), result.sigma("distance")))
+    return [
+        ("corner", lambda: corner_figure(posterior, shared),
+         "Posterior of the shared parameters (parameters held fixed are left out). Diagonal: "
+         "one-dimensional histograms with the 16th, 50th and 84th percentiles (dashed); off "
+         "the diagonal: pairs, with contours enclosing 68.3% and 95.4% of the samples."),
+        ("mass_distance", lambda: mass_distance_figure(posterior, lsq),
+         "Joint posterior of the central mass and the distance: shaded regions enclose 68.3% "
+         "(dark) and 95.4% (light) of the posterior samples (smoothed histogram); dot: "
+         "posterior median; open square: least-squares value with its 1σ errors. The tilt "
+         "is the mass-distance degeneracy."),
+    ]

@@ -1,0 +1,117 @@
+"""deepwell's figure style kit: one palette, one rc style, one way to make and save a figure.
+
+Every figure is built on a plain :class:`matplotlib.figure.Figure` with the
+Agg canvas (no screen, no pyplot state), inside ``matplotlib.rc_context(STYLE)``
+so deepwell's style never leaks into the caller's matplotlib settings, and is
+written by :func:`save_figure` as PDF (vector) and PNG with fixed metadata, so
+identical input gives identical files.
+"""
+
+from pathlib import Path
+
+import matplotlib
+from cycler import cycler
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+__all__ = ["PALETTE", "MARKERS", "MODEL_COLOUR", "COLOUR", "MASS_MARKER", "STYLE", "FORMATS",
+           "style_of", "new_figure", "unique_names", "save_figure"]
+
+#: File formats of every figure: PDF (vector) and PNG (raster at STYLE["savefig.dpi"]).
+FORMATS = ("pdf", "png")
+
+
+#: Colour-blind-safe qualitative palette of Okabe & Ito (2008), "Color Universal
+#: Design" (without its black, kept for models and the mass), reordered so that
+#: the pale yellow comes last: orange, sky blue, bluish green, blue, vermillion,
+#: reddish purple, yellow.
+PALETTE = ("#E69F00", "#56B4E9", "#009E73", "#0072B2", "#D55E00", "#CC79A7", "#F0E442")
+
+
+#: Marker shapes cycled together with the colours, so that every star (or data
+#: set) differs in shape too; colour is never the only cue.
+MARKERS = ("o", "s", "^", "D", "v", "P", "X")
+
+
+MODEL_COLOUR = "#000000"
+#: The same palette by colour name (and black), for figures that give colours a meaning.
+COLOUR = dict(zip(("orange", "sky", "green", "blue", "vermillion", "purple", "yellow"), PALETTE,
+                  strict=True), black=MODEL_COLOUR)
+
+
+MASS_MARKER = dict(marker="+", s=110, color=MODEL_COLOUR, zorder=6, linewidths=1.4)
+
+
+#: deepwell's plot style: one dict, applied with matplotlib.rc_context.
+STYLE = {
+    "font.size": 8.5,
+    "axes.titlesize": 9.5,
+    "axes.titleweight": "bold",
+    "axes.labelsize": 8.5,
+    "axes.linewidth": 0.7,
+    "axes.grid": True,
+    "axes.spines.top": False,
+    "axes.spines.right": False,
+    "axes.prop_cycle": cycler(color=PALETTE),
+    "grid.linewidth": 0.4,
+    "grid.alpha": 0.35,
+    "grid.linestyle": ":",
+    "xtick.direction": "in",
+    "ytick.direction": "in",
+    "xtick.labelsize": 7.5,
+    "ytick.labelsize": 7.5,
+    "lines.linewidth": 1.0,
+    "lines.markersize": 3.5,
+    "errorbar.capsize": 0,
+    "legend.fontsize": 7,
+    "legend.frameon": False,
+    "legend.handlelength": 1.5,
+    "savefig.dpi": 200,
+    "path.simplify": True,
+}
+
+
+def style_of(k):
+    """Colour and marker of item k; both change, so colour is never the only cue."""
+    return PALETTE[k % len(PALETTE)], MARKERS[(k // len(PALETTE) + k) % len(MARKERS)]
+
+
+def new_figure(size):
+    """A figure of ``size`` (inches) on the Agg canvas, outside pyplot."""
+    # Fixed margins instead of a layout engine: layout engines redo their work
+    # on every save and would double the figure time.
+    fig = Figure(figsize=size)
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def unique_names(names):
+    """Names in order of first appearance, each once."""
+    return list(dict.fromkeys(names))
+
+
+def _metadata(fmt):
+    # Fixed metadata: no creation date, so identical input gives identical files.
+    if fmt == "pdf":
+        return {"Creator": "deepwell", "Producer": "deepwell", "CreationDate": None}
+    if fmt == "png":
+        return {"Software": "deepwell"}
+    return None
+
+
+def save_figure(fig, folder, stem, formats=FORMATS):
+    """Write ``fig`` as ``folder/stem.<fmt>`` for every format; return the paths.
+
+    The figure is cleared afterwards (it is not registered with pyplot, so it
+    is freed once unreferenced).
+    """
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    paths = []
+    with matplotlib.rc_context(STYLE):
+        for fmt in formats:
+            path = folder / f"{stem}.{fmt}"
+            fig.savefig(path, format=fmt, metadata=_metadata(fmt))
+            paths.append(path)
+    fig.clear()
+    return paths

@@ -1,0 +1,389 @@
+"""Read the observation tables of a scenario folder.
+
+A scenario folder holds ``positions.csv`` (or ``.ecsv``) and optionally
+``velocities.csv`` (or ``.ecsv``). Cells are read as text and validated column
+by column; every problem is one InputError naming file, line (header = line 1)
+and column. Units: ``ra`` (east, ΔRA·cosδ), ``dec`` (north) and their errors in
+mas, velocities in km/s, epochs as Julian epochs in TT; an ISO date/time epoch
+is read as UTC and converted to TT (physics.md §1).
+"""
+
+import hashlib
+import io
+import re
+import warnings
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+
+import astropy.units as u
+import numpy as np
+import pandas as pd
+from astropy.time import Time
+from astropy.utils.exceptions import AstropyWarning
+from erfa import ErfaWarning
+
+from deepwell.core.errors import InputError
+
+__all__ = ["DataWarning", "Observations", "read_positions", "read_velocities",
+           "read_observations"]
+
+_REQUIRED = {"positions": ("star", "epoch", "ra", "dec", "ra_err", "dec_err"),
+             "velocities": ("star", "epoch", "vr", "vr_err")}
+_OPTIONAL = {"positions": ("corr", "dataset", "relative_to", "exclude"),
+             "velocities": ("dataset", "exclude")}
+_COLUMNS = {kind: (*_REQUIRED[kind], *_OPTIONAL[kind], "line", "file") for kind in _REQUIRED}
+_UNITS = {"ra": u.mas, "dec": u.mas, "ra_err": u.mas, "dec_err": u.mas,
+          "vr": u.km / u.s, "vr_err": u.km / u.s, "corr": u.dimensionless_unscaled}
+_TEXT = ("star", "dataset", "relative_to", "exclude")
+_TRUE, _FALSE = {"true", "yes", "1"}, {"false", "no", "0", ""}
+
+
+class DataWarning(UserWarning):
+    """A star was dropped from the observations (too few epochs, no positions)."""
+
+
+@dataclass(frozen=True, eq=False)
+class Observations:
+    """Validated observations of one scenario.
+
+    Attributes
+    ----------
+    positions : pandas.DataFrame
+        Columns ``star, epoch, ra, dec, ra_err, dec_err, corr, dataset,
+        relative_to, exclude, line, file``; epoch in Julian years TT, offsets
+        and errors in mas.
+    velocities : pandas.DataFrame
+        Columns ``star, epoch, vr, vr_err, dataset, exclude, line, file``
+        (km/s); empty with these columns if the folder has no velocity table.
+    dropped_stars : tuple of (str, str, str)
+        ``(star, file, reason)`` of every star dropped with a warning.
+    checksums : dict
+        ``{file name: sha256 hex digest}`` of every input file read.
+    folder : str
+        The scenario folder as given.
+    """
+
+    positions: pd.DataFrame
+    velocities: pd.DataFrame
+    dropped_stars: tuple
+    checksums: dict
+    folder: str
+
+
+@contextmanager
+def _quiet():
+    """Silence astropy/ERFA leap-second and dubious-year warnings."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", AstropyWarning)
+        warnings.simplefilter("ignore", ErfaWarning)
+        yield
+
+
+def _csv_cells(text, file):
+    """Split CSV text into stripped string cells; return (cells, lines, header, header line)."""
+    body = text.lstrip()
+    if not body:
+        raise InputError("no data rows (empty file)", file=file)
+    skip = text[:len(text) - len(body)].count("\n")  # blank lines above the header
+    head_text = body.splitlines()[0]
+    if "," not in head_text:
+        for sep, name in ((";", "';'"), ("\t", "tabs"), ("|", "'|'"), (" ", "spaces")):
+            if sep in head_text.strip():
+                raise InputError(f"expected comma-separated columns; found {name}",
+                                 file=file, row=skip + 1)
+    try:
+        df = pd.read_csv(io.StringIO(body), header=None, dtype=str, keep_default_na=False,
+                         skip_blank_lines=False, skipinitialspace=True)
+    except pd.errors.ParserError as exc:
+        found = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(exc))
+        if not found:
+            raise InputError(f"cannot split into columns: {exc}", file=file) from None
+        want, line, saw = map(int, found.groups())
+        raise InputError(f"{saw} cells but the header has {want}", file=file,
+                         row=line + skip) from None
+    df = df.fillna("").apply(lambda col: col.str.strip())
+    used = np.flatnonzero((df.iloc[1:] != "").any(axis=1).to_numpy()) + 1  # skip blank lines
+    cells = df.iloc[used].reset_index(drop=True)
+    return cells, used + 1 + skip, list(df.iloc[0]), skip + 1
+
+
+def _ecsv_cells(text, file):
+    """Read ECSV text, converting units; return (cells, lines, header, header line)."""
+    from astropy.table import Table
+
+    try:
+        with _quiet():
+            tbl = Table.read(text.splitlines(), format="ascii.ecsv")
+    except Exception as exc:  # astropy raises many kinds for a malformed file
+        raise InputError(f"cannot read ECSV table: {exc}", file=file) from None
+    body = [i + 1 for i, s in enumerate(text.splitlines())
+            if s.strip() and not s.lstrip().startswith("#")]
+    head_line = body[0] if body else None
+    lines = np.array(body[1:] if len(body) == len(tbl) + 1
+                     else [(head_line or 0) + 1 + i for i in range(len(tbl))], dtype=int)
+    cells = {}
+    for j, name in enumerate(tbl.colnames):
+        key, col = name.strip().lower(), tbl[name]
+        unit = getattr(col, "unit", None)
+        if isinstance(col, Time):
+            if key != "epoch":
+                raise InputError("a time column is allowed only for 'epoch'", file=file,
+                                 column=name)
+            with _quiet():
+                cells[j] = np.ma.filled(np.ma.asarray(col.tt.jyear, float), np.nan)
+        elif key in _TEXT or col.dtype.kind not in "iuf":
+            cells[j] = np.char.strip(np.ma.filled(np.ma.asarray(col).astype(str), ""))
+        else:
+            values = np.ma.filled(np.ma.asarray(col).astype(float), np.nan)
+            if key == "epoch" and unit is not None and unit != u.yr:
+                raise InputError(f"epoch unit must be yr (Julian epoch) or a time column, "
+                                 f"not '{unit}'", file=file, column=name)
+            if key in _UNITS and unit is not None:
+                try:
+                    values = (values * unit).to_value(_UNITS[key])
+                except u.UnitConversionError:
+                    raise InputError(f"unit '{unit}' cannot be converted to "
+                                     f"'{_UNITS[key]}'", file=file, column=name) from None
+            cells[j] = values
+    return pd.DataFrame(cells, index=range(len(tbl))), lines, list(tbl.colnames), head_line
+
+
+def _utc_to_jyear(strings):
+    """ISO UTC date/time strings to TT Julian epochs (NaN where unparseable)."""
+    with _quiet():
+        try:
+            return Time(strings, format="isot", scale="utc").tt.jyear
+        except ValueError:  # some string is bad: convert one by one to find which
+            out = np.full(len(strings), np.nan)
+            for i, text in enumerate(strings):
+                try:
+                    out[i] = Time(text, format="isot", scale="utc").tt.jyear
+                except ValueError:
+                    pass
+            return out
+
+
+class _Table:
+    """Raw cells of one file plus what is needed to name a bad cell."""
+
+    def __init__(self, cells, lines, names, file):
+        self.cells, self.lines, self.names, self.file = cells, lines, names, file
+
+    def check(self, bad, key, message):
+        """Raise for the first row where ``bad``; ``message(raw value)`` says what is wrong."""
+        bad = np.asarray(bad, dtype=bool)
+        if bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            value = self.cells[key].iloc[i] if key in self.cells else None
+            raise InputError(message(value), file=self.file, row=int(self.lines[i]),
+                             column=self.names.get(key, key))
+
+    def numbers(self, key, values=None, default=None):
+        """Column ``key`` as finite floats (``values``: already parsed ones)."""
+        raw = self.cells[key]
+        if values is None:
+            values = np.array(pd.to_numeric(raw, errors="coerce"), dtype=float)
+        if default is not None:
+            values[raw.isna().to_numpy() | (raw == "").to_numpy()] = default
+
+        def why(v):
+            if v == "" or pd.isna(v):
+                return "empty cell"
+            try:
+                return f"not a finite number: {float(v)!r}"
+            except ValueError:
+                return f"not a number: {v!r}"
+
+        self.check(~np.isfinite(values), key, why)
+        return values
+
+    def epochs(self):
+        """Epochs as TT Julian years; ISO strings are UTC dates/times."""
+        raw = self.cells["epoch"]
+        values = np.array(pd.to_numeric(raw, errors="coerce"), dtype=float)
+        iso = np.isnan(values) & (raw != "").to_numpy() & (not pd.api.types.is_numeric_dtype(raw))
+        if iso.any():
+            values[iso] = _utc_to_jyear(raw[iso].str.replace(" ", "T", n=1).to_numpy(str))
+            self.check(iso & np.isnan(values), "epoch",
+                       lambda v: f"not a number or ISO date/time: {v!r}")
+        return self.numbers("epoch", values)
+
+    def text(self, key, default):
+        """Column ``key`` as stripped strings, ``default`` where absent or empty."""
+        if key not in self.cells:
+            return np.full(len(self.lines), default, dtype=object)
+        s = self.cells[key].astype(str).str.strip()
+        return s.where(s != "", default).to_numpy(object)
+
+
+def _read(path, kind):
+    """Read and validate one table; return (DataFrame, sha256 hex digest)."""
+    file = str(path)
+    try:
+        data = Path(path).read_bytes()
+    except OSError as exc:
+        raise InputError(f"cannot read file: {exc.strerror or exc}", file=file) from None
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not UTF-8 text (byte 0x{data[exc.start]:02x})", file=file,
+                         row=data[:exc.start].count(b"\n") + 1) from None
+    reader = _ecsv_cells if file.lower().endswith(".ecsv") else _csv_cells
+    cells, lines, header, head_line = reader(text, file)
+    names, keep = {}, {}
+    for j, name in enumerate(header):
+        key = str(name).strip().lower()
+        if key in names and key:
+            raise InputError(f"column '{key}' appears twice", file=file, row=head_line,
+                             column=str(name).strip())
+        names[key] = str(name).strip()
+        if key in _COLUMNS[kind] and key not in ("line", "file"):
+            keep[key] = cells[j]
+    for key in _REQUIRED[kind]:
+        if key not in names:
+            found = ", ".join(n for n in names.values() if n)
+            raise InputError(f"missing required column '{key}' (found: {found})", file=file,
+                             column=key)
+    if len(lines) == 0:
+        raise InputError("no data rows (header only)", file=file)
+    table = _validate(_Table(pd.DataFrame(keep), lines, names, file), kind)
+    return table, hashlib.sha256(data).hexdigest()
+
+
+def _validate(t, kind):
+    """Check every column of ``t`` and build the result frame."""
+    out = {"star": t.text("star", "")}
+    t.check(out["star"] == "", "star", lambda v: "empty star name")
+    out["epoch"] = t.epochs()
+    for key in _REQUIRED[kind][2:]:
+        out[key] = t.numbers(key)
+        if key.endswith("_err"):
+            t.check(out[key] <= 0, key, lambda v: f"error must be positive: {v!r}")
+    if kind == "positions":
+        out["corr"] = t.numbers("corr", default=0.0) if "corr" in t.cells else \
+            np.zeros(len(t.lines))
+        t.check(np.abs(out["corr"]) >= 1, "corr",
+                lambda v: f"correlation must lie strictly between -1 and 1: {v!r}")
+    out["dataset"] = t.text("dataset", "default")
+    if kind == "positions":
+        rel = np.char.lower(t.text("relative_to", "frame").astype(str))
+        t.check(~np.isin(rel, ["frame", "mass"]), "relative_to",
+                lambda v: f"relative_to must be 'frame' or 'mass', not {v!r}")
+        out["relative_to"] = rel.astype(object)
+    flag = np.char.lower(t.text("exclude", "").astype(str))
+    t.check(~np.isin(flag, [*_TRUE, *_FALSE]), "exclude",
+            lambda v: f"exclude must be true/false/yes/no/1/0, not {v!r}")
+    out["exclude"] = np.isin(flag, list(_TRUE))
+    out["line"], out["file"] = np.asarray(t.lines, dtype=int), t.file
+    df = pd.DataFrame(out, columns=_COLUMNS[kind])
+    key = ["star", "epoch", "dataset"]
+    dup = df.duplicated(subset=key, keep="first").to_numpy()
+    if dup.any():
+        i = int(np.flatnonzero(dup)[0])
+        first = df.index[(df[key] == df.loc[i, key]).all(axis=1)][0]
+        raise InputError(f"duplicate row: star '{df.star[i]}', epoch {float(df.epoch[i])!r}, "
+                         f"dataset '{df.dataset[i]}' already on line {df.line[first]}",
+                         file=t.file, row=int(df.line[i]))
+    return df
+
+
+def read_positions(path):
+    """Read and validate a positions table (``.csv`` or ``.ecsv``).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file; raise InputError naming file, line and column if it is bad.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns as in :attr:`Observations.positions`.
+    """
+    return _read(path, "positions")[0]
+
+
+def read_velocities(path):
+    """Read and validate a radial-velocity table (``.csv`` or ``.ecsv``).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file; raise InputError naming file, line and column if it is bad.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns as in :attr:`Observations.velocities`.
+    """
+    return _read(path, "velocities")[0]
+
+
+def _find(folder, name):
+    """Path of ``name``.csv or ``name``.ecsv in ``folder`` (None if neither)."""
+    paths = [p for p in (folder / f"{name}.csv", folder / f"{name}.ecsv") if p.exists()]
+    if len(paths) == 2:
+        raise InputError(f"both {paths[0]} and {paths[1]} exist; keep only one",
+                         file=paths[0])
+    return paths[0] if paths else None
+
+
+def read_observations(folder, min_epochs=3, strict=False):
+    """Read the positions and (optional) velocity tables of a scenario folder.
+
+    Parameters
+    ----------
+    folder : str or os.PathLike
+        Folder holding ``positions.csv``/``.ecsv`` and optionally
+        ``velocities.csv``/``.ecsv``.
+    min_epochs : int, optional
+        Stars with fewer distinct non-excluded position epochs are dropped.
+    strict : bool, optional
+        Raise InputError instead of dropping a star with a DataWarning.
+
+    Returns
+    -------
+    Observations
+
+    Raises
+    ------
+    InputError
+        For a bad table, a missing positions table, a star that would be
+        dropped under ``strict``, or when every star is dropped.
+    """
+    root = Path(folder)
+    if not root.is_dir():
+        raise InputError("not a folder", file=str(folder))
+    pos_path, vel_path = _find(root, "positions"), _find(root, "velocities")
+    if pos_path is None:
+        raise InputError("no positions table (positions.csv or positions.ecsv)",
+                         file=str(folder))
+    pos, digest = _read(pos_path, "positions")
+    checksums = {pos_path.name: digest}
+    if vel_path is None:
+        vel = pd.DataFrame({c: [] for c in _COLUMNS["velocities"]}).astype(
+            {"star": str, "epoch": float, "vr": float, "vr_err": float, "dataset": str,
+             "exclude": bool, "line": int, "file": str})
+    else:
+        vel, checksums[vel_path.name] = _read(vel_path, "velocities")
+
+    counts = pos[~pos.exclude].groupby("star").epoch.nunique()
+    problems = [(s, pos, f"only {counts.get(s, 0)} usable position epochs (need {min_epochs})")
+                for s in sorted(set(pos.star)) if counts.get(s, 0) < min_epochs]
+    problems += [(s, vel, "velocities but no positions")
+                 for s in sorted(set(vel.star) - set(pos.star))]
+    dropped = []
+    for star, table, reason in problems:
+        file = str(table.file.iloc[0])
+        if strict:
+            line = int(table.line[table.star == star].iloc[0])
+            raise InputError(f"star '{star}': {reason}", file=file, row=line, column="star")
+        warnings.warn(DataWarning(f"{file}: star '{star}' dropped: {reason}"), stacklevel=2)
+        dropped.append((star, file, reason))
+    gone = [d[0] for d in dropped]
+    pos = pos[~pos.star.isin(gone)].reset_index(drop=True)
+    vel = vel[~vel.star.isin(gone)].reset_index(drop=True)
+    if pos.empty:
+        raise InputError(f"no star left: all {len(gone)} stars were dropped", file=str(pos_path))
+    return Observations(pos, vel, tuple(dropped), checksums, str(folder))

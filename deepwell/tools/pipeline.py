@@ -1,0 +1,101 @@
+"""The whole job of ``deepwell fit`` as one library call: tables in, report folder out.
+
+:func:`fit_report` reads the scenario, fits, runs the analyses, samples the
+posterior when asked, and writes the report into a staged folder that
+replaces ``out`` only when everything is written (a failed run leaves an
+existing folder untouched).
+"""
+
+from dataclasses import dataclass
+from pathlib import Path
+
+from deepwell.fit import fit_joint, sample_posterior
+from deepwell.report import discard_output, install_output, prepare_output, write_report
+from deepwell.results import analyse
+from deepwell.tables import read_external_constraints, read_observations
+
+__all__ = ["FitJob", "fit_report", "chains_folder"]
+
+
+@dataclass(frozen=True)
+class FitJob:
+    """What ``deepwell fit`` is asked to do beside the fit itself.
+
+    Attributes
+    ----------
+    figures : bool
+        Draw the figures.
+    strict : bool
+        Stop on a star with too few epochs instead of setting it aside.
+    extended_mass : tuple of float
+        Plummer scale radii (au) for extended-mass limits.
+    external : str or None
+        CSV of enclosed masses from other tracers.
+    jackknife : tuple of str
+        "star" and/or "dataset" leave-one-out refits.
+    sampling : deepwell.fit.sampling.SamplerOptions or None
+        Sample the posterior with these options (None: no sampling).
+    resume : bool
+        Continue a sampling run from its checkpoints.
+    extra : dict
+        Extra top-level entries of summary.json (e.g. the command line).
+    """
+
+    figures: bool = True
+    strict: bool = False
+    extended_mass: tuple = ()
+    external: str | None = None
+    jackknife: tuple = ()
+    sampling: object = None
+    resume: bool = False
+    extra: dict | None = None
+
+
+def chains_folder(out):
+    """Folder of the sampling checkpoints of a report folder: ``OUT.chains`` beside it."""
+    return Path(str(Path(out)) + ".chains")
+
+
+def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=None):
+    """Fit ``scenario`` with ``settings`` and write the report folder ``out``.
+
+    Parameters
+    ----------
+    scenario : str or Path
+        Folder with positions.csv (and velocities.csv).
+    out : str or Path
+        Report folder to create (or replace, with ``replace``).
+    settings : deepwell.tables.Settings
+    job : FitJob
+    replace : bool
+        Replace an earlier deepwell report in ``out`` (foreign files are kept).
+    progress : callable, optional
+        Called with a short text at each phase.
+
+    Returns
+    -------
+    result : deepwell.fit.FitResult
+    analyses : deepwell.results.Analyses
+    """
+    say = progress or (lambda text: None)
+    obs = read_observations(scenario, min_epochs=settings.min_epochs, strict=job.strict)
+    external = read_external_constraints(job.external) if job.external else None
+    tmp = prepare_output(out, replace=replace)
+    try:
+        result = fit_joint(obs, settings, progress=say)
+        posterior = None
+        if job.sampling is not None:
+            chains = chains_folder(out)
+            say(f"sampling the posterior (checkpoints in {chains}; resume with --resume)")
+            posterior = sample_posterior(result, job.sampling, checkpoint=chains,
+                                         resume=job.resume)
+            say(posterior.statement)
+        analyses = analyse(result, extended_mass=job.extended_mass, external=external,
+                           jackknife=job.jackknife, posterior=posterior, progress=say)
+        say("writing the report")
+        write_report(result, tmp, analyses, figures=job.figures, extra=job.extra)
+        install_output(tmp, out, replace=replace)
+    except BaseException:
+        discard_output(tmp)
+        raise
+    return result, analyses
