@@ -206,7 +206,7 @@ def test_truth_periods_follow_keplers_third_law(tmp_path):
         # k = P^2 M / a^3 = 1.0000377738 for Julian years (physics.md section 1, computed).
         assert star["period"] ** 2 * mass / a_au**3 == pytest.approx(1.0000377738, rel=1e-9)
         assert star["pericentre"] == pytest.approx(a_au * (1 - star["e"]), rel=1e-12)
-    assert truth["units"]["period"] == "Julian yr" and truth["units"]["pericentre"] == "au"
+    assert truth["units"]["period"] == "yr" and truth["units"]["pericentre"] == "AU"
 
 
 @pytest.mark.parametrize("scenario", ["rich", "sparse"])

@@ -67,6 +67,8 @@ EXTRA = {
         ParameterSpec("ext_fraction", "", "extended (Plummer) mass inside the reference radius, "
                       "as a fraction of the central point mass", -1.0, 1.0,
                       r"M_\mathrm{ext}(<r_\mathrm{ref})/M_\bullet", default=0.0),
+        ParameterSpec("outlier_frac", "", "fraction of points drawn from the broad outlier "
+                      "distribution", 0.0, 0.5, r"q_\mathrm{out}", default=0.02),
     )
 }
 

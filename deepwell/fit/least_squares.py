@@ -11,8 +11,6 @@ are used as given: the covariance is *not* rescaled by the reduced chi-square.
 import lmfit
 import numpy as np
 
-from deepwell.core.parameters import EXTRA, SHARED
-
 from .jacobian import default_steps, numerical_jacobian
 
 __all__ = ["bounds", "minimise", "covariance"]
@@ -25,8 +23,8 @@ def bounds(model, settings):
     hi = np.full(len(names), np.inf)
     free = np.ones(len(names), bool)
     for i, name in enumerate(names):
-        if name in SHARED or name in EXTRA:
-            spec = SHARED.get(name) or EXTRA[name]
+        if name in model.layout.shared_names:
+            spec = model.layout.spec(name)
             s = settings.shared_setting(name)
             lo[i] = spec.lower if s.min is None else s.min
             hi[i] = spec.upper if s.max is None else s.max

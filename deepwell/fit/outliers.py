@@ -4,10 +4,7 @@ import dataclasses
 
 import numpy as np
 
-from deepwell.core.parameters import SHARED
-from deepwell.model.joint import JointModel
 from deepwell.model.likelihood import outlier_probabilities
-from deepwell.tables.datasets import DatasetConfig
 
 from .least_squares import minimise
 from .start import find_start
@@ -47,10 +44,7 @@ def restart_without_outliers(model, vec, sol, settings, free, lo, hi):
             rows.line[mask]).to_numpy()
         frames.append(frame)
     clean = dataclasses.replace(obs, positions=frames[0], velocities=frames[1])
-    cfg = model.dataset_config
-    keep = [q for q in model.priors if q.star is not None or q.name in SHARED]
-    kep = JointModel(clean, model.reference_epoch, stars=model.stars, priors=keep,
-                     datasets=DatasetConfig(exclude_rows=cfg.exclude_rows))
+    kep = model.replace(observations=clean).keplerian()
     try:
         start = find_start(kep, settings)
     except Exception:  # noqa: BLE001 - a failed second search leaves the first fit

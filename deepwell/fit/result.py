@@ -13,24 +13,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from deepwell.core.constants import (
-    AU_SI,
-    GM_SUN_AU3_PER_YR2,
-    KMS_PER_AU_PER_YR,
-    SCHWARZSCHILD_M_PER_MSUN,
-)
-from deepwell.core.parameters import SHARED, STAR_ELEMENTS
+from deepwell.core.parameters import STAR_ELEMENTS
+from deepwell.core.units import STAR_REPORTED, UNITS
+from deepwell.model.kernels.orbit import pericentre_speed_kms
+from deepwell.model.kernels.relativity import schwarzschild_radius_au
 from deepwell.model.quality import phase_coverage
 
 from .jacobian import default_steps, numerical_jacobian
 from .least_squares import covariance
 
-__all__ = ["STAR_REPORTED", "FitResult", "physical_labels", "physical_vector", "UNITS"]
+__all__ = ["FitResult", "FitWarning", "assemble_result", "physical_labels", "physical_vector"]
 
-#: Per-star reported quantities, in order, with their units.
-STAR_REPORTED = {"a": "mas", "e": "", "inc": "deg", "node": "deg", "peri_arg": "deg",
-                 "t_peri": "yr", "period": "yr", "r_peri": "AU"}
-UNITS = {**{n: p.unit for n, p in SHARED.items()}, **STAR_REPORTED}
 
 
 def physical_labels(layout):
@@ -167,14 +160,13 @@ class FitResult:
         a_au = g("a") * 1e-3 * self.value("distance")
         e = g("e")
         r_p = a_au * (1 - e)
-        rs_au = mass * SCHWARZSCHILD_M_PER_MSUN / AU_SI
-        # vis-viva at pericentre: v^2 = GM (1 + e) / (a (1 - e))
-        v_p = np.sqrt(GM_SUN_AU3_PER_YR2 * mass / a_au * (1 + e) / (1 - e))
+        rs_au = schwarzschild_radius_au(mass)
+        v_p = pericentre_speed_kms(mass, a_au, e)
         npos, nvel = self.model.star_counts()
         return {
             "r_peri_au": r_p,
-            "r_peri_rs": r_p / rs_au,
-            "v_peri_kms": v_p * KMS_PER_AU_PER_YR,
+            "r_peri_rs": float(r_p / rs_au),
+            "v_peri_kms": float(v_p),
             "coverage": phase_coverage(self.model, self.internal, k),
             "n_positions": int(npos[k]),
             "n_velocities": int(nvel[k]),

@@ -63,22 +63,15 @@ _SPECS = {
 }
 
 
-def _register(name, term):
-    """Declare a data-set parameter in :data:`deepwell.parameters.EXTRA` (once)."""
-    if name in EXTRA:
-        return
+def term_spec(name, term):
+    """Declaration of data-set parameter ``name`` of kind ``term`` (dx, dvz, scale ...)."""
     unit, text = _SPECS[term]
     lo, hi, default = -np.inf, np.inf, 0.0
     if term == "scale":
         lo, hi, default = SCALE_MIN, 100.0, 1.0
     elif term == "jitter":
         lo = 0.0
-    EXTRA[name] = ParameterSpec(name, unit, text, lo, hi, name, default=default)
-
-
-EXTRA.setdefault("outlier_frac", ParameterSpec(
-    "outlier_frac", "", "fraction of points drawn from the broad outlier distribution",
-    0.0, 0.5, "q_\\mathrm{out}", default=0.02))
+    return ParameterSpec(name, unit, text, lo, hi, name, default=default)
 
 
 def mark_excluded(frame, rows, kind, file=None):
@@ -163,11 +156,12 @@ class DatasetTerms:
                                 "identifiable: name one of them as reference (sets: "
                                 f"{', '.join(self.vel_sets)})", file=file,
                                 column="datasets.reference")
-        for name, _, _, term in self.terms:
-            _register(name, term)
         self.mixture = config.likelihood == "mixture"
         self.names = tuple(n for n, *_ in self.terms) + (("outlier_frac",) if self.mixture
                                                          else ())
+        #: Declarations of this model's data-set parameters, carried by the layout.
+        self.specs = tuple(term_spec(name, term) for name, _, _, term in self.terms) + (
+            (EXTRA["outlier_frac"],) if self.mixture else ())
 
     # ------------------------------------------------------------- describing
     def describe(self, name):
@@ -197,8 +191,9 @@ class DatasetTerms:
 
     def start_value(self, name, model):
         """Starting value of a term: 0 offsets, scale 1, jitter half the median error."""
+        spec = self.specs[self.names.index(name)]
         if name == "outlier_frac":
-            return EXTRA[name].default
+            return spec.default
         kind, d, term = self.describe(name)
         if term == "jitter":
             if kind == "p":
@@ -207,7 +202,7 @@ class DatasetTerms:
                                                         model.pos.dec_err[m])))
             m = self.vel_index == self.vel_sets.index(d)
             return 0.5 * float(np.median(model.vel.vr_err[m]))
-        return EXTRA[name].default
+        return spec.default
 
     # ------------------------------------------------------------- evaluation
     def _values(self, model, vec):

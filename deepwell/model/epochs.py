@@ -5,8 +5,6 @@ from types import SimpleNamespace
 import numpy as np
 import pandas as pd
 
-from .joint import JointModel
-
 __all__ = ["model_at_epochs", "star_vector", "with_shared"]
 
 
@@ -35,7 +33,7 @@ def model_at_epochs(model, star, t_pos=(), t_vel=(), newtonian=False):
         Observed epochs (Julian yr) of position and velocity rows.
     newtonian : bool
         Every effect off (the layout then has no extra shared parameters: use
-        :func:`newtonian_vector`).
+        :func:`star_vector` with ``newtonian=True``).
 
     Returns
     -------
@@ -45,11 +43,9 @@ def model_at_epochs(model, star, t_pos=(), t_vel=(), newtonian=False):
     """
     obs = _fake_observations(star, t_pos, t_vel)
     if newtonian:
-        return JointModel(obs, model.reference_epoch, stars=(star,))
-    k = model.stars.index(star)
-    return JointModel(obs, model.reference_epoch, stars=(star,), effects=model.effects,
-                      integrated=model.integrated[k:k + 1],
-                      reference_radius=model.reference_radius)
+        return model.replace(observations=obs, stars=(star,), priors=(), datasets=None,
+                             effects=None, integrated=None, reference_radius=None)
+    return model.replace(observations=obs, stars=(star,), priors=(), datasets=None)
 
 
 def star_vector(model, vec, star, newtonian=False):

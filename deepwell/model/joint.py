@@ -77,6 +77,10 @@ class _Rows:
         self.n = len(frame)
 
 
+_MODEL_ARGS = {"observations", "reference_epoch", "stars", "priors", "effects", "integrated",
+               "reference_radius", "datasets"}
+
+
 class JointModel:
     """Joint Keplerian model of all stars.
 
@@ -144,8 +148,12 @@ class JointModel:
             self.vel.line = vel["line"].to_numpy(int) if "line" in vel else np.zeros(len(vel), int)
         self.datasets = (DatasetTerms(datasets, self.pos, self.vel, strict=stars_given is None)
                          if datasets is not None and datasets.active else None)
-        self.layout = Layout(stars=stars, extra=self.effects.extra_names + (
-            self.datasets.names if self.datasets is not None else ()))
+        terms = self.datasets is not None
+        self.layout = Layout(
+            stars=stars,
+            extra=self.effects.extra_names + (self.datasets.names if terms else ()),
+            specs=tuple(EXTRA[n] for n in self.effects.extra_names)
+            + (self.datasets.specs if terms else ()))
         self._t_all = np.concatenate([self.pos.t, self.vel.t if self.vel else []])
         self._star_all = np.concatenate(
             [self.pos.star, self.vel.star if self.vel else np.zeros(0, np.intp)]
@@ -161,21 +169,37 @@ class JointModel:
         self._prior_index = [self._prior_slot(p) for p in self.priors]
         self.observations = observations
 
+    def replace(self, **changes):
+        """A new model with the same construction arguments except ``changes``.
+
+        Keys are the parameters of the constructor.  The stars are passed
+        explicitly (``self.stars`` unless changed); when the stars change and
+        ``integrated`` is not given, each kept star keeps its integrator flag.
+        """
+        unknown = set(changes) - _MODEL_ARGS
+        if unknown:
+            raise TypeError(f"JointModel has no argument {sorted(unknown)[0]!r}")
+        args = dict(observations=self.observations, reference_epoch=self.reference_epoch,
+                    stars=self.stars, priors=self.priors, effects=self.effects,
+                    integrated=self.integrated, reference_radius=self.reference_radius,
+                    datasets=self.dataset_config)
+        if "stars" in changes and "integrated" not in changes:
+            args["integrated"] = [self.integrated[self.stars.index(s)] for s in changes["stars"]]
+        args.update(changes)
+        return JointModel(**args)
+
     def for_stars(self, stars):
         """The same model restricted to some stars (priors on other stars dropped)."""
         keep = [p for p in self.priors if p.star is None or p.star in stars]
-        integ = [self.integrated[self.stars.index(s)] for s in stars]
-        return JointModel(self.observations, self.reference_epoch, stars=stars, priors=keep,
-                          effects=self.effects, integrated=integ,
-                          reference_radius=self.reference_radius, datasets=self.dataset_config)
+        return self.replace(stars=stars, priors=keep)
 
     def keplerian(self):
         """The same data and priors with every effect off (for the start search)."""
         keep = [p for p in self.priors if p.star is not None or p.name in SHARED]
         cfg = self.dataset_config
         plain = DatasetConfig(exclude_rows=cfg.exclude_rows) if cfg is not None else None
-        return JointModel(self.observations, self.reference_epoch, stars=self.stars, priors=keep,
-                          datasets=plain)
+        return self.replace(priors=keep, datasets=plain, effects=None, integrated=None,
+                            reference_radius=None)
 
     def start_from(self, keplerian_vec, settings=None):
         """Finish the effect set-up from a Keplerian starting vector.
@@ -200,7 +224,7 @@ class JointModel:
             if self.datasets is not None and name in self.datasets.names:
                 default = self.datasets.start_value(name, self)
             else:
-                default = EXTRA[name].default
+                default = self.layout.spec(name).default
             extras.append(s.value if s is not None and s.value is not None else default)
         vec = np.concatenate([kep[..., :n0], extras, kep[..., n0:]])
         el = self.layout.elements(vec)
@@ -213,10 +237,7 @@ class JointModel:
         ref = self.reference_radius
         if self.effects.extended_mass and ref is None:
             ref = reference_radius_from(el, dist)
-        model = JointModel(self.observations, self.reference_epoch, stars=self.stars,
-                           priors=self.priors, effects=self.effects, integrated=integ,
-                           reference_radius=ref, datasets=self.dataset_config)
-        return model, vec
+        return self.replace(integrated=integ, reference_radius=ref), vec
 
     def effect_notes(self):
         """Plain statements of the effect model, for the fit's notes."""

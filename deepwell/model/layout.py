@@ -26,6 +26,13 @@ class Layout:
 
     stars: tuple
     extra: tuple = ()  # names of optional shared parameters (effects, data-set terms)
+    specs: tuple = ()  # their ParameterSpec declarations, in the same order
+
+    def spec(self, name):
+        """Declaration of shared parameter ``name`` (the seven shared ones and the extras)."""
+        if name in SHARED:
+            return SHARED[name]
+        return self.specs[self.extra.index(name)]
 
     @property
     def shared_names(self):

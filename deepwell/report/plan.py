@@ -23,34 +23,15 @@ import matplotlib
 import numpy as np
 from astropy.table import Table
 
+from deepwell.core.units import unit_of
 from deepwell.report.figures.style import MARKERS, PALETTE, STYLE, new_figure, save_figure
 
 __all__ = ["write_plan", "predictions_figure", "gain_figure", "plan_markdown"]
 
-_UNITS = {"epoch": "yr", "ra": "mas", "dec": "mas", "ra_frame": "mas", "dec_frame": "mas",
-          "sep": "mas", "vr": "km / s", "pericentre": "yr", "apocentre": "yr", "period": "yr",
-          "start": "yr", "end": "yr", "closest_epoch": "yr", "min_separation": "mas",
-          "mass": "solMass", "distance": "pc", "f": "", "f_sp": ""}
-
-
-def _unit(col):
-    if col in _UNITS:
-        return _UNITS[col]
-    for prefix in ("sigma_now_", "sigma_after_"):
-        if col.startswith(prefix):
-            return _UNITS[col[len(prefix):]]
-    if col.startswith("pos95_"):
-        return "deg" if col.endswith("pa") else "mas"
-    for suffix in ("_lo95", "_lo68", "_hi68", "_hi95", "_sigma"):
-        if col.endswith(suffix):
-            return _UNITS.get(col[: -len(suffix)])
-    return None
-
-
 def _table(frame, description):
     t = Table.from_pandas(frame)
     for col in t.colnames:
-        unit = _unit(col)
+        unit = unit_of(col)
         if unit:
             t[col].unit = unit
     t.meta["description"] = description

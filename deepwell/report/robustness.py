@@ -10,34 +10,21 @@ from pathlib import Path
 
 from astropy.table import Table
 
+from deepwell.core.jsonsafe import json_safe
+from deepwell.core.units import UNITS, unit_of
 from deepwell.report.figures.jackknife import plot_jackknife
 
 __all__ = ["robustness_summary", "write_robustness_tables", "robustness_markdown",
            "write_robustness_figures"]
 
-_UNITS = {"dx": "mas", "dy": "mas", "dvx": "mas / yr", "dvy": "mas / yr", "dvz": "km / s",
-          "epoch": "yr"}
-
-
-def _clean(value):
-    """JSON-safe copy: non-finite floats become None, containers are cleaned too."""
-    if isinstance(value, dict):
-        return {k: _clean(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_clean(v) for v in value]
-    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
-        value = value.item()  # numpy scalar
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 def robustness_summary(analyses):
     """Entries for summary.json: ``datasets``, ``outliers`` and ``jackknife``."""
-    out = {"datasets": [{k: _clean(v) for k, v in row.items()} for row in analyses.datasets],
-           "outliers": [{k: _clean(v) for k, v in row.items()} for row in analyses.outliers]}
+    out = {"datasets": [{k: json_safe(v) for k, v in row.items()} for row in analyses.datasets],
+           "outliers": [{k: json_safe(v) for k, v in row.items()} for row in analyses.outliers]}
     if analyses.jackknife:
-        out["jackknife"] = [_clean(jk.to_dict()) for jk in analyses.jackknife]
+        out["jackknife"] = [json_safe(jk.to_dict()) for jk in analyses.jackknife]
     return out
 
 
@@ -53,9 +40,9 @@ def _table(rows):
         cols[k] = vals
     t = Table(cols)
     for k in keys:
-        base = k[:-4] if k.endswith("_err") else k
-        if base in _UNITS:
-            t[k].unit = _UNITS[base]
+        unit = unit_of(k)
+        if unit:
+            t[k].unit = unit
     return t
 
 
@@ -112,7 +99,7 @@ def robustness_markdown(analyses):
             term = f"scale {_fmt(r['scale'], r.get('scale_err'))}"
         elif "jitter" in r:
             term = f"jitter {_fmt(r['jitter'], r.get('jitter_err'))}"
-        offs = ", ".join(f"{k} = {_fmt(r[k], r.get(k + '_err'))} {_UNITS[k]}"
+        offs = ", ".join(f"{k} = {_fmt(r[k], r.get(k + '_err'))} {UNITS[k]}"
                          for k in ("dx", "dy", "dvx", "dvy", "dvz") if k in r) or "–"
         lines.append(f"| {r['dataset']} | {r['kind']} | {r['n_points']} | "
                      f"{r['chi2_stated']:.1f} / {r['n_numbers']} | {r['chi2']:.1f} | "

@@ -9,16 +9,15 @@ unit; every model assumption that could mislead is said in words.
 
 import math
 
-import numpy as np
-
-from deepwell.fit.result import UNITS
+from deepwell.core.jsonsafe import json_safe
+from deepwell.core.units import UNITS
 from deepwell.results.compactness import compactness_from_samples
 from deepwell.results.effect_sizes import DETECTABLE_RULE
 
 from .analysis_tables import posterior_summary
 from .tables import format_asymmetric, format_value_error
 
-__all__ = ["json_safe", "OSCULATING_STATEMENT", "effects_block", "md_effects",
+__all__ = ["OSCULATING_STATEMENT", "effects_block", "md_effects",
            "extended_block", "md_extended", "enclosed_block", "md_enclosed",
            "posterior_parameters", "sampling_block", "posterior_compactness", "md_posterior",
            "not_converged_banner"]
@@ -27,33 +26,13 @@ OSCULATING_STATEMENT = ("for integrated stars the elements are osculating Kepler
                         "at each star's apocentre epoch t_peri + P/2")
 
 
-def json_safe(x):
-    """Nested dict/list/number with numpy types converted and nan/inf as None."""
-    if isinstance(x, dict):
-        return {str(k): json_safe(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [json_safe(v) for v in x]
-    if isinstance(x, (bool, np.bool_)):
-        return bool(x)
-    if isinstance(x, (int, np.integer)):
-        return int(x)
-    if isinstance(x, (float, np.floating)):
-        return float(x) if math.isfinite(x) else None
-    return x
-
-
-def _star_list(names):
-    return ", ".join(names) if names else "none"
-
-
 # ------------------------------------------------------------------ effects
 #: Units of the numeric entries of deepwell.effect_summary.star_effect_sizes.
-EFFECT_UNITS = {"redshift_excess_kms": "km / s", "redshift_first_order_kms": "km / s",
-                "precession_arcmin": "arcmin", "precession_mas": "mas",
-                "romer_range_days": "d", "romer_rv_kms": "km / s", "romer_sky_mas": "mas",
-                "min_position_error_mas": "mas", "median_velocity_error_kms": "km / s",
-                "osculating_epoch": "yr", "integrated_period": "yr",
-                "pericentre_emitted": "yr", "pericentre_observed": "yr"}
+EFFECT_UNITS = {k: UNITS[k] for k in (
+    "redshift_excess_kms", "redshift_first_order_kms", "precession_arcmin", "precession_mas",
+    "romer_range_days", "romer_rv_kms", "romer_sky_mas", "min_position_error_mas",
+    "median_velocity_error_kms", "osculating_epoch", "integrated_period", "pericentre_emitted",
+    "pericentre_observed")}
 
 
 def effects_block(result, sizes):

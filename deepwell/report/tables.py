@@ -13,15 +13,9 @@ import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
-from deepwell.core.constants import (
-    AU_SI,
-    GM_SUN_AU3_PER_YR2,
-    KMS_PER_AU_PER_YR,
-    SCHWARZSCHILD_M_PER_MSUN,
-)
 from deepwell.core.parameters import SHARED
+from deepwell.core.units import UNITS
 from deepwell.core.version import __version__
-from deepwell.fit.result import UNITS
 
 __all__ = ["format_value_error", "format_asymmetric", "star_numbers", "shared_table",
            "stars_table", "latex_shared", "latex_stars", "write_tables", "STAR_COLUMNS"]
@@ -139,13 +133,9 @@ def star_numbers(result, star):
     out = dict(result.star_summary(star))
     mass, dist = result.value("mass"), result.value("distance")
     r_p, a, e = (result.value(f"{star}:{q}") for q in ("r_peri", "a", "e"))
-    rs_au = mass * SCHWARZSCHILD_M_PER_MSUN / AU_SI
-    out["r_peri_rs"] = r_p / rs_au
     out["r_peri_rs_err"] = out["r_peri_rs"] * _delta_sigma(
         result, {f"{star}:r_peri": 1.0 / r_p, "mass": -1.0 / mass})
-    a_au = a * 1e-3 * dist
-    v_p = math.sqrt(GM_SUN_AU3_PER_YR2 * mass * (1 + e) / (a_au * (1 - e))) * KMS_PER_AU_PER_YR
-    out["v_peri_kms"] = v_p
+    v_p = out["v_peri_kms"]
     out["v_peri_kms_err"] = v_p * _delta_sigma(result, {
         "mass": 0.5 / mass, "distance": -0.5 / dist, f"{star}:a": -0.5 / a,
         f"{star}:e": 1.0 / (1.0 - e * e)})

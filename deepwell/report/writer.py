@@ -32,8 +32,9 @@ from pathlib import Path
 
 import numpy as np
 
+from deepwell.core.jsonsafe import json_safe
+from deepwell.core.units import UNITS
 from deepwell.core.version import __version__
-from deepwell.fit.result import UNITS
 from deepwell.model.quality import GOOD_RPERI_ERROR, POOR_COVERAGE, POOR_PERIOD_ERROR
 from deepwell.results.compactness import compactness, compactness_paragraph
 from deepwell.results.saved_fit import write_state
@@ -52,7 +53,6 @@ from .sections import (
     effects_block,
     enclosed_block,
     extended_block,
-    json_safe,
     md_effects,
     md_enclosed,
     md_extended,
@@ -145,8 +145,7 @@ def _compactness(result):
 # -------------------------------------------------------------------- summary
 def _num(x):
     """JSON-safe float (None for nan/inf)."""
-    x = float(x)
-    return x if math.isfinite(x) else None
+    return json_safe(float(x))
 
 
 def _q(result, label):

@@ -14,6 +14,7 @@ import numpy as np
 from astropy import constants as _const
 
 from deepwell.core import constants as _c
+from deepwell.model.kernels.relativity import schwarzschild_radius_au
 
 __all__ = [
     "schwarzschild_radius_au", "escape_velocity_kms", "escape_fraction_of_c", "mean_density",
@@ -33,16 +34,6 @@ VIRIAL_COEFF = 0.4
 #: Default age of the host galaxy in yr (common practice).
 GALAXY_AGE_YR = 1.0e10
 _R_SUN_AU = float(_const.R_sun.si.value) / _c.AU_SI  # IAU 2015 nominal solar radius
-
-
-def schwarzschild_radius_au(mass):
-    """Schwarzschild radius R_s = 2 G M / c^2 in au for a mass in Msun.
-
-    Notes
-    -----
-    Uses the nominal GM_sun (IAU 2015 B3): R_s = 2953.25 m per Msun.
-    """
-    return np.asarray(mass, dtype=float) * (_c.SCHWARZSCHILD_M_PER_MSUN / _c.AU_SI)
 
 
 def escape_velocity_kms(mass, r_au):

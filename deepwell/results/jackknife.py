@@ -27,7 +27,6 @@ from deepwell.core.parameters import STAR_INTERNAL
 from deepwell.fit.joint import build_model, fit_joint
 from deepwell.fit.least_squares import bounds, minimise
 from deepwell.fit.result import assemble_result
-from deepwell.model.joint import JointModel
 
 __all__ = ["JackknifeResult", "jackknife", "STAND_OUT_P"]
 
@@ -65,10 +64,6 @@ class JackknifeResult:
     jackknife_sigma: dict
     statistical_sigma: dict
     notes: tuple
-
-    def outstanding(self):
-        """Units whose leave-one-out shift stands out."""
-        return [r["left_out"] for r in self.rows if r["stands_out"]]
 
     def to_dict(self):
         """JSON-ready record."""
@@ -161,9 +156,7 @@ def _refit(full, sub, settings):
     base = build_model(sub, settings)
     fm = full.model
     integ = [fm.integrated[fm.stars.index(s)] for s in base.stars]
-    model = JointModel(sub, settings.reference_epoch, stars=base.stars, priors=base.priors,
-                       effects=base.effects, integrated=integ,
-                       reference_radius=fm.reference_radius, datasets=base.dataset_config)
+    model = base.replace(integrated=integ, reference_radius=fm.reference_radius)
     lo, hi, free = bounds(model, settings)
     vec0 = np.clip(_start_vector(full, model), lo, hi)
     vec, sol = minimise(model, vec0, free, lo, hi)

@@ -17,7 +17,6 @@ from deepwell.core.errors import InputError
 from deepwell.core.version import __version__
 from deepwell.fit.joint import build_model
 from deepwell.fit.result import assemble_result
-from deepwell.model.joint import JointModel
 from deepwell.tables.observations import read_observations
 from deepwell.tables.settings import parse_settings
 
@@ -91,10 +90,8 @@ def load_fit(report_dir, scenario=None):
             raise InputError("the table changed since the fit was made; fit it again",
                              file=str(Path(folder) / name))
     base = build_model(obs, settings)
-    model = JointModel(obs, settings.reference_epoch, stars=state["stars"], priors=base.priors,
-                       effects=base.effects, integrated=state["integrated"],
-                       reference_radius=state["reference_radius"],
-                       datasets=base.dataset_config)
+    model = base.replace(stars=state["stars"], integrated=state["integrated"],
+                         reference_radius=state["reference_radius"])
     if model.layout.names() != state["names"]:
         raise InputError("the saved parameters do not match the rebuilt model", file=str(path))
     vec = np.array(state["internal"])

@@ -19,6 +19,7 @@ import os
 from pathlib import Path
 
 from deepwell.core.errors import DeepwellError
+from deepwell.core.jsonsafe import json_safe
 
 __all__ = ["journal_path", "TrialJournal"]
 
@@ -28,13 +29,6 @@ _KEY = "deepwell_calibration_journal"
 def journal_path(out):
     """``OUT.trials.jsonl``: the journal beside output folder ``out``."""
     return Path(str(Path(out)).rstrip("/") + ".trials.jsonl")
-
-
-def _clean(value):
-    """JSON-safe value: NaN and infinities become None."""
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
 
 
 def _restore(record):
@@ -90,7 +84,7 @@ class TrialJournal:
 
     def _append(self, obj):
         with open(self.path, "a") as fh:
-            fh.write(json.dumps({k: _clean(v) for k, v in obj.items()}) + "\n")
+            fh.write(json.dumps({k: json_safe(v) for k, v in obj.items()}) + "\n")
             fh.flush()
             os.fsync(fh.fileno())
 

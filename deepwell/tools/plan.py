@@ -37,7 +37,6 @@ import pandas as pd
 from deepwell.core.constants import C_AU_PER_YR
 from deepwell.core.errors import InputError
 from deepwell.fit.least_squares import default_steps, numerical_jacobian
-from deepwell.model.joint import JointModel
 from deepwell.results.effect_sizes import pericentre_epochs
 from deepwell.tables.observations import Observations
 
@@ -161,8 +160,7 @@ def synthetic_model(model, epochs, pos_err=1.0, vel_err=10.0, stars=None,
                         "dec_err": pos_err, "corr": 0.0, "relative_to": relative_to})
     vel = pd.DataFrame({**common, "vr": 0.0, "vr_err": vel_err})
     obs = Observations(pos, vel, (), {}, "")
-    return JointModel(obs, model.reference_epoch, stars=model.stars, effects=model.effects,
-                      integrated=model.integrated, reference_radius=model.reference_radius)
+    return model.replace(observations=obs, priors=(), datasets=None)
 
 
 def draw_vectors(result, n_draws, rng, samples=None):

@@ -61,6 +61,7 @@ import pandas as pd
 
 from deepwell.core.constants import DEFAULT_REFERENCE_EPOCH, KMS_PER_AU_PER_YR
 from deepwell.core.errors import OutputError, SettingsError
+from deepwell.core.units import UNITS
 from deepwell.model.kernels.orbit import keplerian_track, period_from_a
 from deepwell.model.kernels.relativity import emission_epochs, pn_track, redshift_velocity
 
@@ -71,10 +72,10 @@ POSITION_COLUMNS = ("star", "epoch", "ra", "dec", "ra_err", "dec_err", "dataset"
 VELOCITY_COLUMNS = ("star", "epoch", "vr", "vr_err", "dataset")
 OUTPUT_FILES = ("positions.csv", "velocities.csv", "truth.json", "description.toml")
 ELEMENT_KEYS = ("a", "e", "inc", "node", "peri_arg", "t_peri")
-UNITS = {"mass": "Msun", "distance": "pc", "x0": "mas", "y0": "mas", "vx0": "mas/yr",
-         "vy0": "mas/yr", "vz0": "km/s", "reference_epoch": "Julian yr (TT)", "a": "mas",
-         "e": "1", "inc": "deg", "node": "deg", "peri_arg": "deg", "t_peri": "Julian yr (TT)",
-         "period": "Julian yr", "pericentre": "au"}
+#: Units of truth.json (astropy unit strings; epochs are Julian years in TT).
+TRUTH_UNITS = {k: UNITS[k] for k in ("mass", "distance", "x0", "y0", "vx0", "vy0", "vz0",
+                                     "reference_epoch", "a", "e", "inc", "node", "peri_arg",
+                                     "t_peri", "period")} | {"pericentre": "AU"}
 _REQUIRED = object()
 _MIN_ERROR = {"positions": 1e-3, "velocities": 1e-2}  # 10x the rounding step
 
@@ -359,7 +360,7 @@ def _truth_record(description):
         if description.effects.integrated:
             stars[name]["osculating_epoch"] = el["t_peri"] + 0.5 * period
     return {"scenario": description.name, "story": description.story, "seed": description.seed,
-            "reference_epoch": description.reference_epoch, "units": UNITS,
+            "reference_epoch": description.reference_epoch, "units": TRUTH_UNITS,
             "shared": asdict(shared), "stars": stars, "effects": asdict(description.effects)}
 
 

@@ -13,8 +13,8 @@ import numpy as np
 import pandas as pd
 
 from deepwell.core.errors import DeepwellError
-from deepwell.core.parameters import EXTRA
-from deepwell.fit.result import UNITS, physical_labels, physical_vector
+from deepwell.core.units import UNITS
+from deepwell.fit.result import physical_labels, physical_vector
 
 from .backend import fingerprint
 from .convergence import (
@@ -191,9 +191,9 @@ def start_positions(target, result, n_walkers, rng, max_rounds=200):
     raise RuntimeError("could not place the walkers inside the prior support")
 
 
-def _unit(label):
+def _unit(label, layout):
     name = label.split(":")[-1]
-    return UNITS[name] if name in UNITS else EXTRA[name].unit
+    return UNITS[name] if name in UNITS else layout.spec(name).unit
 
 
 def _stop_rule(chain, thin):
@@ -512,7 +512,7 @@ def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed,
     lay = target.model.layout
     labels = tuple(physical_labels(lay))
     return PosteriorResult(
-        labels=labels, units=tuple(_unit(lab) for lab in labels),
+        labels=labels, units=tuple(_unit(lab, lay) for lab in labels),
         samples=physical_vector(lay, internal), internal_names=tuple(lay.names()),
         internal_samples=internal, log_prob=lps, sampled_names=tuple(target.names),
         acceptance=np.stack([r.acceptance for r in runs]), tau=tau, rhat=rhat,

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from deepwell.core.constants import KEPLER_K, KMS_PER_AU_PER_YR
+from deepwell.core.constants import GM_SUN_AU3_PER_YR2, KEPLER_K, KMS_PER_AU_PER_YR
 
 from .kepler import solve_kepler
 
@@ -24,6 +24,8 @@ __all__ = [
     "period_from_a",
     "a_from_period",
     "thiele_innes",
+    "to_sky",
+    "pericentre_speed_kms",
     "kepler_xy",
     "OrbitTrack",
     "keplerian_track",
@@ -178,12 +180,42 @@ def keplerian_track(t, a, ecc, inc, node, peri_arg, t_peri, period, distance):
                       v_z=v_z * mas_per_yr_to_kms)
 
 
+def pericentre_speed_kms(mass, a_au, ecc):
+    """Speed at pericentre from vis-viva, v_p^2 = G M (1 + e) / (a (1 - e)), in km/s.
+
+    ``mass`` in Msun, ``a_au`` the semi-major axis in au (Kepler orbit of a
+    test particle; common practice).
+    """
+    mass, a_au, ecc = (np.asarray(x, dtype=float) for x in (mass, a_au, ecc))
+    return np.sqrt(GM_SUN_AU3_PER_YR2 * mass / a_au * (1 + ecc) / (1 - ecc)) * KMS_PER_AU_PER_YR
+
+
+def to_sky(constants, X, Y):
+    """East, north and z of orbital-plane coordinates: the Thiele-Innes combination.
+
+    Parameters
+    ----------
+    constants : tuple of array_like
+        (A, B, F, G, C, H) from :func:`thiele_innes`.
+    X, Y : array_like
+        Orbital-plane coordinates (X toward pericentre) in units of the
+        eccentric-anomaly ellipse, or their time derivatives.
+
+    Returns
+    -------
+    east, north, z : ndarray
+        east = B X + G Y, north = A X + F Y, z = C X + H Y (physics.md sect. 2),
+        in the unit of the constants.
+    """
+    A, B, F, G, C, H = constants
+    return B * X + G * Y, A * X + F * Y, C * X + H * Y
+
+
 def _sky_state(t, a, ecc, inc, node, peri_arg, t_peri, period):
     """east, north, z and their rates, in the unit of ``a`` (and per yr)."""
     X, Y, dX, dY = kepler_xy(t, period, ecc, t_peri)
-    A, B, F, G, C, H = thiele_innes(a, inc, node, peri_arg)
-    return (B * X + G * Y, A * X + F * Y, C * X + H * Y,
-            B * dX + G * dY, A * dX + F * dY, C * dX + H * dY)
+    consts = thiele_innes(a, inc, node, peri_arg)
+    return to_sky(consts, X, Y) + to_sky(consts, dX, dY)
 
 
 def elements_from_thiele_innes(A, B, F, G, C=None, H=None):

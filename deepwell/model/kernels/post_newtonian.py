@@ -27,7 +27,7 @@ from scipy.integrate._ivp import dop853_coefficients as _dop
 
 from deepwell.core.constants import C_AU_PER_YR, GM_SUN_AU3_PER_YR2, KEPLER_K, KMS_PER_AU_PER_YR
 
-from .orbit import kepler_xy, thiele_innes
+from .orbit import kepler_xy, thiele_innes, to_sky
 
 __all__ = ["IntegratedStates", "PhysicalTrack", "integrate_orbits", "osculating_state", "pn_track"]
 
@@ -332,9 +332,9 @@ def osculating_state(a_au, e, inc, node, peri_arg, t_peri, t_ref, mass):
     """
     period = np.sqrt(KEPLER_K * np.asarray(a_au, dtype=float) ** 3 / mass)
     X, Y, dX, dY = kepler_xy(t_ref, period, e, t_peri)
-    A, B, F, G, C, H = thiele_innes(a_au, inc, node, peri_arg)
-    r = np.stack(np.broadcast_arrays(B * X + G * Y, A * X + F * Y, C * X + H * Y), axis=-1)
-    v = np.stack(np.broadcast_arrays(B * dX + G * dY, A * dX + F * dY, C * dX + H * dY), axis=-1)
+    consts = thiele_innes(a_au, inc, node, peri_arg)
+    r = np.stack(np.broadcast_arrays(*to_sky(consts, X, Y)), axis=-1)
+    v = np.stack(np.broadcast_arrays(*to_sky(consts, dX, dY)), axis=-1)
     return r, v
 
 

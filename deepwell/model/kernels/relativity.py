@@ -19,15 +19,17 @@ from dataclasses import dataclass
 import numpy as np
 
 from deepwell.core.constants import (
+    AU_SI,
     C_AU_PER_YR,
     C_KMS,
     GRAV_RADIUS_AU_PER_MSUN,
     KEPLER_K,
     KMS_PER_AU_PER_YR,
     MAS_PER_RAD,
+    SCHWARZSCHILD_M_PER_MSUN,
 )
 
-from .orbit import OrbitTrack, kepler_xy, thiele_innes
+from .orbit import OrbitTrack, kepler_xy, thiele_innes, to_sky
 from .post_newtonian import (
     IntegratedStates,
     PhysicalTrack,
@@ -37,6 +39,7 @@ from .post_newtonian import (
 )
 
 __all__ = [
+    "schwarzschild_radius_au",
     "romer_delay_days",
     "emission_epochs",
     "redshift_velocity",
@@ -343,21 +346,23 @@ def keplerian_emission_track(t, a, ecc, inc, node, peri_arg, t_peri, period, dis
     hundred seconds near a tight pericentre, the second well below 1 s
     (physics.md sect. 4).
     """
-    A, B, F, G, C, H = thiele_innes(a, inc, node, peri_arg)
+    consts = thiele_innes(a, inc, node, peri_arg)
+    C, H = consts[4], consts[5]
     t = np.asarray(t, dtype=float)
     t_em = t
     if romer:
         to_au = np.asarray(distance) * 1e-3 / C_AU_PER_YR  # mas -> light-years of au
         for _ in range(n_newton):
             X, Y, dX, dY = kepler_xy(t_em, period, ecc, t_peri)
-            z = (C * X + H * Y) * to_au
+            z = (C * X + H * Y) * to_au  # the z row of to_sky only
             vz = (C * dX + H * dY) * to_au
             t_em = t_em - (t_em + z - t) / (1.0 + vz)
     X, Y, dX, dY = kepler_xy(t_em, period, ecc, t_peri)
     to_kms = np.asarray(distance) * 1e-3 * KMS_PER_AU_PER_YR
-    track = OrbitTrack(east=B * X + G * Y, north=A * X + F * Y, z=C * X + H * Y,
-                       v_east=B * dX + G * dY, v_north=A * dX + F * dY,
-                       v_z=(C * dX + H * dY) * to_kms)
+    east, north, z = to_sky(consts, X, Y)
+    v_east, v_north, v_z = to_sky(consts, dX, dY)
+    track = OrbitTrack(east=east, north=north, z=z, v_east=v_east, v_north=v_north,
+                       v_z=v_z * to_kms)
     return track, np.broadcast_to(t_em, track.east.shape)
 
 
@@ -369,3 +374,13 @@ def star_sky_precession_mas(el, mass, distance):
     """
     a_au = el["a"] * 1e-3 * distance
     return effect_sizes(a_au, el["e"], mass, distance, el["inc"], el["peri_arg"]).precession_mas
+
+
+def schwarzschild_radius_au(mass):
+    """Schwarzschild radius R_s = 2 G M / c^2 in au for a mass in Msun.
+
+    Notes
+    -----
+    Uses the nominal GM_sun (IAU 2015 B3): R_s = 2953.25 m per Msun.
+    """
+    return np.asarray(mass, dtype=float) * (SCHWARZSCHILD_M_PER_MSUN / AU_SI)

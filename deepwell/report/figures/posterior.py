@@ -25,7 +25,6 @@ __all__ = ["corner_labels", "corner_figure", "credible_levels", "mass_distance_d
 CONTOUR_LEVELS = (0.6827, 0.9545)
 #: Posterior draws used for the predictive bands.
 N_DRAWS = 100
-BAND_COLOUR = PALETTE[1]
 
 
 def corner_labels(posterior, names):
