@@ -317,3 +317,25 @@ def test_command_line_switches_for_data_sets(shifted, tmp_path, capsys):
     bad = main(["fit", str(shifted), "--out", str(tmp_path / "out2"), "-q",
                 "--reference-set", "nowhere", "--offsets"])
     assert bad == 2 and "'nowhere' is not in the data" in capsys.readouterr().err
+
+
+# -------------------------------------------------- figures with data-set terms
+def test_figures_draw_with_data_set_terms_and_curves_match_the_reference_set(fits, tmp_path):
+    # The stand-in model for chosen epochs has no data-set terms; its curve must be the
+    # fitted model of the reference spectrograph (no zero-point), row for row.
+    from deepwell.model.epochs import model_at_epochs, star_vector
+    from deepwell.report.figures import write_figures
+
+    _, full = fits
+    m = full.model
+    pred = m.predict(full.internal).vr
+    ref = m.vel.dataset == "spec-1"
+    for k, star in enumerate(m.stars):
+        rows = ref & (m.vel.star == k)
+        curve = model_at_epochs(m, star, t_vel=m.vel.t[rows]).predict(
+            star_vector(m, full.internal, star)).vr
+        np.testing.assert_allclose(curve, pred[rows], rtol=0, atol=1e-9)  # km/s
+    figs = write_figures(full, tmp_path / "figures")
+    for stem in ("sky", *(f"star_{s}" for s in m.stars)):
+        png = tmp_path / "figures" / f"{stem}.png"
+        assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and stem in figs

@@ -188,7 +188,8 @@ def test_state_map_picks_the_pericentre_epoch_nearest_the_fit_and_reports_the_wi
     target, cov = _one_star()
     theta = target.base[target.sampled]
     wt = WhitenedTarget(target, theta, cov, state_arc=1e9)
-    i_p, i_t = target.names.index("s0_period"), target.names.index("s0_t_peri")
+    star = target.model.stars[0]
+    i_p, i_t = target.names.index(f"{star}:period"), target.names.index(f"{star}:t_peri")
     moved = theta.copy()
     moved[i_t] += 0.55 * theta[i_p]
     back = wt.to_theta(wt.to_u(moved))

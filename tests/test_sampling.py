@@ -311,7 +311,7 @@ def test_prior_on_a_carries_the_jacobian_of_the_sampled_period():
     t0, t1 = LogPosterior(plain, False), LogPosterior(with_prior, False)
     theta = t0.base[t0.sampled]
     lay = plain.model.layout
-    period = theta[t0.names.index("s0_period")]
+    period = theta[t0.names.index(f"{lay.stars[0]}:period")]
     mass, dist = theta[t0.names.index("mass")], theta[t0.names.index("distance")]
     a = (period**2 * mass / 1.0000377738) ** (1.0 / 3.0) / dist * 1e3
     expected = -0.5 * ((a - mean) / sigma) ** 2 + np.log(2.0 * a / (3.0 * period))

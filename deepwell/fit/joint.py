@@ -46,7 +46,7 @@ def fit_joint(observations, settings, progress=None):
     Parameters
     ----------
     observations : deepwell.tables.Observations
-    settings : deepwell.settings.Settings
+    settings : deepwell.tables.settings.Settings
     progress : callable, optional
         Called with a short text at each phase (for the command line).
 
@@ -57,7 +57,7 @@ def fit_joint(observations, settings, progress=None):
     say = progress or (lambda text: None)
     model = build_model(observations, settings)
     say(f"searching starting orbits for {len(model.stars)} stars")
-    start = find_start(model.keplerian(), settings)  # effects: see deepwell.effects
+    start = find_start(model.keplerian(), settings)  # effects: see deepwell.model.effects
     model, start_vec = model.start_from(start.vec, settings)
     start.notes.extend(model.effect_notes())
     lo, hi, free = bounds(model, settings)
@@ -76,7 +76,7 @@ def fit_joint(observations, settings, progress=None):
     say(f"joint fit of {int(free.sum())} parameters to {model.n_data} data")
     vec, sol = minimise(model, vec0, free, lo, hi)
     notes = list(start.notes)
-    if model.datasets is not None and model.datasets.mixture:  # see deepwell.robust
+    if model.datasets is not None and model.datasets.mixture:  # see deepwell.model.likelihood
         vec, sol, note = restart_without_outliers(model, vec, sol, settings, free, lo, hi)
         notes += [note] if note else []
     poor = _stars_to_polish(model, vec)

@@ -11,6 +11,8 @@ are used as given: the covariance is *not* rescaled by the reduced chi-square.
 import lmfit
 import numpy as np
 
+from deepwell.core.parameters import STAR_INTERNAL
+
 from .jacobian import default_steps, numerical_jacobian
 
 __all__ = ["bounds", "minimise", "covariance"]
@@ -30,8 +32,9 @@ def bounds(model, settings):
             hi[i] = spec.upper if s.max is None else s.max
             free[i] = not s.fixed
         else:
-            k, el = name[1:].split("_", 1)
-            st = settings.stars.get(model.stars[int(k)])
+            k, j = divmod(i - model.layout.n_shared, len(STAR_INTERNAL))
+            el = STAR_INTERNAL[j]
+            st = settings.stars.get(model.stars[k])
             free[i] = not (st is not None and st.fixed)
             lo[i], hi[i] = {"period": (1e-3, np.inf), "sqe_cos": (-1.0, 1.0),
                             "sqe_sin": (-1.0, 1.0),
@@ -77,7 +80,7 @@ def minimise(model, vec0, free, lo, hi, max_nfev=None, restarts=8):
         With ``success``, ``message`` and ``nfev``.
     """
     vec0 = np.asarray(vec0, float)
-    names = model.layout.names()
+    names = [f"x{i}" for i in range(model.layout.size)]  # lmfit wants identifiers
     params = lmfit.Parameters()
     for i, name in enumerate(names):
         params.add(name, value=float(np.clip(vec0[i], lo[i], hi[i])), min=lo[i], max=hi[i],

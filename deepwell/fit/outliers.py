@@ -15,7 +15,7 @@ __all__ = ["restart_without_outliers"]
 def restart_without_outliers(model, vec, sol, settings, free, lo, hi):
     """Second start search without the likely outliers; keep the better mixture fit.
 
-    The automatic start search (:mod:`deepwell.start`) sees every point alike,
+    The automatic start search (:mod:`deepwell.fit.start`) sees every point alike,
     so blunders can put one star's starting orbit in the wrong place, and the
     mixture then calls that star's good points outliers (a local optimum).
     Points with outlier probability above 0.5 are left out of a second start

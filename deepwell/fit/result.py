@@ -5,7 +5,7 @@ parameters, then for every star ``a`` (mas), ``e``, ``inc``, ``node``,
 ``peri_arg`` (deg), ``t_peri`` (yr), ``period`` (yr) and ``r_peri``
 (pericentre distance, au).  Their covariance follows from the internal one by
 the delta method.  Result objects never plot or write themselves: that is the
-job of :mod:`deepwell.figures` and :mod:`deepwell.report`.
+job of :mod:`deepwell.report.figures` and :mod:`deepwell.report`.
 """
 
 import warnings
@@ -135,7 +135,10 @@ class FitResult:
 
     def quantity(self, label):
         """(value, sigma, unit) of a reported quantity."""
-        return self.value(label), self.sigma(label), UNITS[label.split(":")[-1]]
+        lay = self.model.layout
+        unit = (lay.spec(label).unit if label in lay.shared_names
+                else UNITS[label.split(":")[-1]])
+        return self.value(label), self.sigma(label), unit
 
     @property
     def mass_distance_correlation(self):

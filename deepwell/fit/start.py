@@ -258,7 +258,7 @@ def find_start(model, settings, shared_start=None):
     Parameters
     ----------
     model : deepwell.model.JointModel
-    settings : deepwell.settings.Settings
+    settings : deepwell.tables.settings.Settings
     shared_start : dict, optional
         Starting values of shared parameters that override the search.
 

@@ -18,10 +18,11 @@ the reference set(s).
 
 The settings that switch them on are read by :mod:`deepwell.tables.datasets`.
 
-Parameter names (valid identifiers, in :meth:`Layout.names`): position set j
-(sets sorted by name) has ``p{j}_dx``, ``p{j}_dy``, ``p{j}_dvx``, ``p{j}_dvy``,
-``p{j}_scale`` or ``p{j}_jitter``; velocity set j has ``v{j}_dvz``,
-``v{j}_scale`` or ``v{j}_jitter``; the mixture adds ``outlier_frac``.
+Parameter names (in :meth:`Layout.names`) carry the data set's name, so they
+do not depend on which other sets are present: a position set ``D`` has
+``D:dx``, ``D:dy``, ``D:dvx``, ``D:dvy``, ``D:pos_scale`` or ``D:pos_jitter``;
+a velocity set has ``D:dvz``, ``D:vel_scale`` or ``D:vel_jitter``; the
+mixture adds ``outlier_frac``.
 :meth:`DatasetTerms.describe` says which set a name belongs to.
 
 Likelihood as least squares
@@ -38,7 +39,7 @@ and the sampler (log-posterior = -1/2 sum residuals^2) uses unchanged.
 Gauss-Newton J^T J of those rows understates the information on a scale by
 a factor 2, so :meth:`DatasetTerms.information_jacobian` replaces them by
 the exact Fisher information of the error terms, 1/2 tr(C^-1 dC C^-1 dC),
-for the covariance.  The mixture likelihood is in :mod:`deepwell.robust`.
+for the covariance.  The mixture likelihood is in :mod:`deepwell.model.likelihood`.
 """
 
 from pathlib import Path
@@ -124,7 +125,7 @@ class DatasetTerms:
                           if vel is not None else np.zeros(0, np.intp))
         self.terms = []  # (name, kind, set, term)
         frame_sets = sorted(set(pos.dataset[pos.frame > 0]))
-        for j, d in enumerate(self.pos_sets):
+        for d in self.pos_sets:
             off = config.choice(d, "offset") and d not in config.reference
             if off and d not in frame_sets:
                 if d in config.sets and config.sets[d].get("offset"):
@@ -134,16 +135,16 @@ class DatasetTerms:
                 off = False
             if off:
                 terms = ("dx", "dy") + (("dvx", "dvy") if config.choice(d, "drift") else ())
-                self.terms += [(f"p{j}_{t}", "p", d, t) for t in terms]
+                self.terms += [(f"{d}:{t}", "p", d, t) for t in terms]
             em = config.choice(d, "error_model")
             if em != "none":
-                self.terms.append((f"p{j}_{em}", "p", d, em))
-        for j, d in enumerate(self.vel_sets):
+                self.terms.append((f"{d}:pos_{em}", "p", d, em))
+        for d in self.vel_sets:
             if config.choice(d, "zero_point") and d not in config.reference:
-                self.terms.append((f"v{j}_dvz", "v", d, "dvz"))
+                self.terms.append((f"{d}:dvz", "v", d, "dvz"))
             em = config.choice(d, "error_model")
             if em != "none":
-                self.terms.append((f"v{j}_{em}", "v", d, em))
+                self.terms.append((f"{d}:vel_{em}", "v", d, em))
         off_frame = {d for _, k, d, t in self.terms if t == "dx"}
         if off_frame and not set(frame_sets) - off_frame:
             raise SettingsError("every set with frame positions has an offset, so x0 and y0 "

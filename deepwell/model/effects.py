@@ -8,13 +8,14 @@ Model (``shared/physics.md`` sections 4-7):
   t_em + z(t_em)/c = t_obs (two Newton steps for Keplerian stars, solved
   inside the integrator for integrated stars).  The frame drift uses t_obs.
 * Redshift: RV = vz0 + v_z + f * excess (exact or first order), from
-  :func:`deepwell.relativity.redshift_velocity`.
+  :func:`deepwell.model.kernels.relativity.redshift_velocity`.
 * Precession / extended mass: the star's elements are *osculating* Keplerian
   elements at the star's own apocentre epoch t_peri + P/2 (P from Kepler's law
   with the point mass); the track is integrated from there with
-  :func:`deepwell.pn.pn_track`.  ``t_peri`` and the period are then those of
+  :func:`deepwell.model.kernels.post_newtonian.pn_track`.  ``t_peri`` and the period
+  are then those of
   the osculating ellipse, not the observed pericentre passage and the
-  integrated period (see :mod:`deepwell.effect_summary`).
+  integrated period (see :mod:`deepwell.results.effect_sizes`).
 """
 
 import numpy as np

@@ -1,24 +1,36 @@
 """The joint model of one star evaluated at chosen epochs (figures, planning, effect sizes)."""
 
-from types import SimpleNamespace
-
 import numpy as np
 import pandas as pd
 
-__all__ = ["model_at_epochs", "star_vector", "with_shared"]
+from deepwell.core.parameters import SHARED
+from deepwell.tables.observations import Observations
+
+__all__ = ["observations_at", "model_at_epochs", "star_vector", "with_shared"]
 
 
 # ------------------------------------------------------------------ evaluation
-def _fake_observations(star, t_pos, t_vel):
-    """Minimal observation tables (one star) at chosen epochs, for evaluating a model."""
-    t_pos = np.asarray(t_pos, float)
-    t_vel = np.asarray(t_vel, float)
-    pos = pd.DataFrame({"star": [star] * t_pos.size, "epoch": t_pos, "ra": 0.0, "dec": 0.0,
-                        "ra_err": 1.0, "dec_err": 1.0, "corr": 0.0, "exclude": False,
-                        "relative_to": "mass", "dataset": "model", "line": 0})
-    vel = pd.DataFrame({"star": [star] * t_vel.size, "epoch": t_vel, "vr": 0.0, "vr_err": 1.0,
-                        "exclude": False, "dataset": "model", "line": 0})
-    return SimpleNamespace(positions=pos, velocities=vel)
+def observations_at(stars, t_pos, t_vel, pos_err=1.0, vel_err=1.0, relative_to="mass",
+                    dataset="model"):
+    """Observation tables with one row per star and chosen epoch, measured values zero.
+
+    For evaluating a model where nothing was observed (predictions, Jacobians,
+    forecasts): only the epochs, the stated errors (``pos_err`` mas in each
+    coordinate, ``vel_err`` km/s) and what positions are measured against
+    (``relative_to``: "mass" or "frame") matter.  Rows are star by star.
+    """
+    stars = list(stars)
+    t_pos, t_vel = np.asarray(t_pos, float), np.asarray(t_vel, float)
+
+    def rows(t):
+        n = t.size * len(stars)
+        return {"star": np.repeat(stars, t.size), "epoch": np.tile(t, len(stars)),
+                "dataset": dataset, "exclude": False, "line": np.arange(n), "file": dataset}
+
+    pos = pd.DataFrame({**rows(t_pos), "ra": 0.0, "dec": 0.0, "ra_err": pos_err,
+                        "dec_err": pos_err, "corr": 0.0, "relative_to": relative_to})
+    vel = pd.DataFrame({**rows(t_vel), "vr": 0.0, "vr_err": vel_err})
+    return Observations(pos, vel, (), {}, "")
 
 
 def model_at_epochs(model, star, t_pos=(), t_vel=(), newtonian=False):
@@ -41,7 +53,7 @@ def model_at_epochs(model, star, t_pos=(), t_vel=(), newtonian=False):
         Its only star is ``star``; position rows are mass-relative (no frame
         terms).  Evaluate it with :func:`star_vector` of the full vector.
     """
-    obs = _fake_observations(star, t_pos, t_vel)
+    obs = observations_at((star,), t_pos, t_vel)
     if newtonian:
         return model.replace(observations=obs, stars=(star,), priors=(), datasets=None,
                              effects=None, integrated=None, reference_radius=None)
@@ -49,18 +61,18 @@ def model_at_epochs(model, star, t_pos=(), t_vel=(), newtonian=False):
 
 
 def star_vector(model, vec, star, newtonian=False):
-    """Shared part and ``star``'s block of internal vector(s) ``vec`` of ``model``.
+    """The vector(s) of :func:`model_at_epochs` for ``star`` from internal vector(s) ``vec``.
 
-    With ``newtonian`` the extra shared parameters (effect strengths) are
-    dropped too: the Keplerian layout has none.
+    The model at chosen epochs has no data-set terms (its rows belong to no
+    data set), so their parameters are dropped; with ``newtonian`` the effect
+    strengths are dropped too (the Keplerian layout has none).
     """
     vec = np.asarray(vec, float)
     lay = model.layout
-    n_sh = lay.n_shared
-    n0 = n_sh - len(lay.extra) if newtonian else n_sh
-    k = model.stars.index(star)
-    block = lay.star_block(vec)[..., k, :]
-    return np.concatenate([vec[..., :n0], block], axis=-1)
+    keep = list(SHARED) + ([] if newtonian else list(model.effects.extra_names))
+    cols = [lay.shared_names.index(n) for n in keep]
+    block = lay.star_block(vec)[..., model.stars.index(star), :]
+    return np.concatenate([vec[..., cols], block], axis=-1)
 
 
 def with_shared(model, vec, name, value):

@@ -1,7 +1,7 @@
 """The joint model: all stars around one mass, one distance, one drifting frame.
 
 :class:`JointModel` turns an internal parameter vector (see
-:mod:`deepwell.parameters`) into predicted sky positions and radial
+:mod:`deepwell.core.parameters`) into predicted sky positions and radial
 velocities for every row of the observation tables, and into whitened
 residuals for the fitter.  Everything is vectorised: a stack of parameter
 vectors of shape (..., n_par) gives predictions of shape (..., n_rows), so
@@ -14,7 +14,7 @@ Model (``shared/physics.md`` section 3)::
     dec = [y0 + vy0 (t - t_ref)] + north(t)
     vr  = vz0 + v_z(t)
 
-Switchable relativistic pieces (:mod:`deepwell.effects`) change east, north
+Switchable relativistic pieces (:mod:`deepwell.model.effects`) change east, north
 and v_z: the orbit is taken at the emission epoch (Romer delay), stars whose
 precession matters are integrated at first post-Newtonian order (elements
 osculating at each star's apocentre epoch t_peri + P/2), and vr gains the
@@ -94,7 +94,7 @@ class JointModel:
         Stars to model (default: every star with positions).
     priors : sequence of Prior, optional
         Gaussian priors, added as extra residual rows.
-    effects : deepwell.effects.Effects, optional
+    effects : deepwell.tables.effects, optional
         Relativistic pieces to include (default: none, the Keplerian model).
     integrated : sequence of bool, optional
         Per star: use the 1PN/Plummer orbit integrator (default: every star
@@ -102,7 +102,7 @@ class JointModel:
     reference_radius : float, optional
         Radius (au) inside which ``ext_fraction`` is quoted (default: the
         effects' value, else set by :meth:`start_from`).
-    datasets : deepwell.datasets.DatasetConfig, optional
+    datasets : deepwell.tables.datasets, optional
         Data-set terms, error models, likelihood and excluded rows (default:
         none, every row alike).
     """
@@ -205,8 +205,8 @@ class JointModel:
         """Finish the effect set-up from a Keplerian starting vector.
 
         Inserts the effect strengths at their starting values (settings value,
-        else the default of :data:`deepwell.parameters.EXTRA`), chooses which
-        stars are integrated (:func:`deepwell.effects.choose_integrated`) and
+        else the default of :data:`deepwell.core.parameters.EXTRA`), chooses which
+        stars are integrated (:func:`deepwell.model.effects.choose_integrated`) and
         fixes the reference radius of the extended mass if none was given.
 
         Returns
@@ -415,7 +415,7 @@ class JointModel:
 
         Their sum of squares is -2 ln(likelihood x priors) up to a constant,
         also with fitted error terms and the mixture likelihood (extra rows
-        after the data; see :mod:`deepwell.datasets`, :mod:`deepwell.robust`).
+        after the data; see :mod:`deepwell.model.datasets`, :mod:`deepwell.model.likelihood`).
         """
         ds = self.datasets
         if ds is None:
@@ -435,7 +435,7 @@ class JointModel:
         """Jacobian rows whose J^T J is the information used for the covariance.
 
         ``jac`` is the Jacobian of :meth:`residuals`; unchanged without fitted
-        error terms (see :meth:`deepwell.datasets.DatasetTerms.information_jacobian`).
+        error terms (see :meth:`deepwell.model.datasets.DatasetTerms.information_jacobian`).
         """
         if self.datasets is None or not self.datasets.n_norm_rows():
             return jac
@@ -460,7 +460,7 @@ class JointModel:
 
         A row owned by star k depends on the shared parameters and on star k's
         elements only, which lets a Jacobian perturb one element of every star
-        at once (see :func:`deepwell.fit.numerical_jacobian`).
+        at once (see :func:`deepwell.fit.jacobian`).
         """
         data = [self.pos.star, self.pos.star,
                 self.vel.star if self.vel else np.zeros(0, np.intp)]

@@ -47,10 +47,15 @@ class Layout:
         return self.n_shared + len(STAR_INTERNAL) * len(self.stars)
 
     def names(self):
-        """Internal parameter names (valid Python identifiers)."""
+        """Internal parameter names: the shared ones, then ``<star>:<element>`` per star.
+
+        Names are stable: they depend on the star (and data-set) names, not on
+        their order, so two fits of overlapping data share the names of what
+        they share.
+        """
         out = list(self.shared_names)
-        for k in range(len(self.stars)):
-            out += [f"s{k}_{p}" for p in STAR_INTERNAL]
+        for star in self.stars:
+            out += [f"{star}:{p}" for p in STAR_INTERNAL]
         return out
 
     def index(self, name):

@@ -9,7 +9,7 @@ dimension (2 or 1)::
 
     -2 ln L_i = l(rho^2) = -2 ln[(1 - q) exp(-rho^2/2) + q W^-d exp(-rho^2/(2 W^2))]
 
-(up to a constant; the ln sigma normalisation is in :mod:`deepwell.datasets`).
+(up to a constant; the ln sigma normalisation is in :mod:`deepwell.model.datasets`).
 Least squares minimises it exactly through a residual transform: every
 whitened number z of point i becomes z * sqrt((l(rho^2) - l(0)) / rho^2)
 (real because the density falls with rho; smooth at rho = 0, where the factor

@@ -1,7 +1,7 @@
 """Tables of the newer analyses: posterior summary, effect sizes, extended-mass limits.
 
 Part of the report layer (:mod:`deepwell.report`), beside
-:mod:`deepwell.report_tables` (whose formatting and conventions it uses):
+:mod:`deepwell.report.tables` (whose formatting and conventions it uses):
 ECSV with units in the column headers, booktabs LaTeX rounded to the errors.
 """
 
@@ -134,7 +134,7 @@ def _nan(x):
 
 
 def effects_table(result, sizes):
-    """Per-star effect sizes (see deepwell.effect_summary.star_effect_sizes) with units."""
+    """Per-star effect sizes (see deepwell.results.effect_sizes.star_effect_sizes) with units."""
     stars = list(result.stars)
     t = Table()
     t["star"] = stars
@@ -183,7 +183,7 @@ def latex_effects(result, sizes):
 
 # ------------------------------------------------------------------ extended mass
 def extended_table(limits):
-    """Plummer-mass limits (deepwell.effect_summary.extended_mass_limits) with units."""
+    """Plummer-mass limits (deepwell.results.effect_sizes.extended_mass_limits) with units."""
     t = Table()
     t["scale_radius"] = [r["scale_radius_au"] for r in limits] * u.au
     t["reference_radius"] = [r["reference_radius_au"] for r in limits] * u.au

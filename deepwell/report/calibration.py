@@ -15,7 +15,7 @@
   in the outermost bins).
 
 The figure is drawn on a plain Agg :class:`~matplotlib.figure.Figure` inside
-``rc_context(deepwell.figures.STYLE)``.
+``rc_context(deepwell.report.figures.STYLE)``.
 """
 
 import math

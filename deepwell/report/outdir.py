@@ -15,7 +15,7 @@ every file exists. deepwell records the files it wrote in a manifest,
 * a run that fails before installing removes its temporary folder and leaves
   the final folder untouched (:func:`staged_output` does this for you).
 
-Every refusal is a one-line :class:`~deepwell.errors.OutputError`.
+Every refusal is a one-line :class:`~deepwell.core.errors.OutputError`.
 """
 
 import hashlib

@@ -1,7 +1,7 @@
 """Writing a plan: ECSV tables, figures and ``plan.md``.
 
-The reporting layer of :mod:`deepwell.plan`: it takes a finished
-:class:`~deepwell.plan.Plan` and writes, into one folder,
+The reporting layer of :mod:`deepwell.tools.plan`: it takes a finished
+:class:`~deepwell.tools.plan.Plan` and writes, into one folder,
 
 ==========================  ===================================================
 ``predictions.ecsv``        positions, separation, RV with 68% / 95% bands

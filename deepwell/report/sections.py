@@ -27,7 +27,7 @@ OSCULATING_STATEMENT = ("for integrated stars the elements are osculating Kepler
 
 
 # ------------------------------------------------------------------ effects
-#: Units of the numeric entries of deepwell.effect_summary.star_effect_sizes.
+#: Units of the numeric entries of deepwell.results.effect_sizes.star_effect_sizes.
 EFFECT_UNITS = {k: UNITS[k] for k in (
     "redshift_excess_kms", "redshift_first_order_kms", "precession_arcmin", "precession_mas",
     "romer_range_days", "romer_rv_kms", "romer_sky_mas", "min_position_error_mas",

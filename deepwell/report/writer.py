@@ -1,8 +1,8 @@
 """The written report of a fit: summary.json, tables, figures and report.md.
 
-:func:`write_report` takes a :class:`~deepwell.results.FitResult` and a folder
+:func:`write_report` takes a :class:`~deepwell.fit.result.FitResult` and a folder
 and writes everything into it; :func:`save_report` does the same through the
-safe output folder of :mod:`deepwell.outdir`. The numbers are taken from the
+safe output folder of :mod:`deepwell.report.outdir`. The numbers are taken from the
 result as they are: uncertainties are 1-sigma from the stated data errors and
 are not rescaled by the reduced chi-square.
 
@@ -13,17 +13,17 @@ Layout of the folder::
     tables/shared.ecsv, .tex    shared parameters (least squares)
     tables/stars.ecsv, .tex     per-star elements and derived numbers (least squares)
     tables/effects.ecsv, .tex   sizes of the relativistic effects per star
-    tables/enclosed_mass.ecsv   per-star enclosed masses (deepwell.profile)
+    tables/enclosed_mass.ecsv   per-star enclosed masses (deepwell.results.enclosed)
     tables/extended_mass.*      Plummer-mass limits (when computed)
     tables/posterior_*.ecsv,    posterior medians and percentiles (when sampled)
       posterior.tex
-    figures/*.pdf, *.png        see deepwell.figures, figures_effects, figures_posterior
+    figures/*.pdf, *.png        see deepwell.report.figures, figures_effects, figures_posterior
 
 With a posterior sample the "parameters" and "stars" entries of summary.json
 are posterior medians with 16th/84th percentiles (``lower``/``upper``) and
 ``sigma`` = half their distance; the least-squares numbers stay under
 "least_squares".  The newer analyses' blocks and report sections live in
-:mod:`deepwell.report_sections`.
+:mod:`deepwell.report.sections`.
 """
 
 import json
@@ -162,15 +162,15 @@ def summary_dict(result, extra=None, posterior=None, profile=None, extended_limi
     extra : dict, optional
         Additional top-level entries (e.g. the command line); may not reuse a
         contract key.
-    posterior : deepwell.sampling.PosteriorResult, optional
+    posterior : deepwell.fit.sampling.PosteriorResult, optional
         "parameters" and "stars" become posterior medians and percentiles;
         adds "sampling" and "least_squares".
-    profile : deepwell.profile.EnclosedMassProfile, optional
+    profile : deepwell.results.enclosed.EnclosedMassProfile, optional
         Adds "enclosed_mass".
     extended_limits : list of dict, optional
-        From :func:`deepwell.effect_summary.extended_mass_limits`; adds "extended_mass".
+        From :func:`deepwell.results.effect_sizes.extended_mass_limits`; adds "extended_mass".
     effect_sizes : dict, optional
-        From :func:`deepwell.effect_summary.star_effect_sizes`; adds "effects" and,
+        From :func:`deepwell.results.effect_sizes.star_effect_sizes`; adds "effects" and,
         per star, "effect_sizes", "integrated_period" and "pericentre_observed".
     """
     shared = result.model.layout.shared_names
@@ -321,7 +321,7 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
         From :func:`report_notes`.
     comp : tuple (dict, CompactnessReport) or (None, None)
     figures : dict
-        From :func:`deepwell.figures.write_figures` (empty: no figures).
+        From :func:`deepwell.report.figures.write_figures` (empty: no figures).
     posterior, profile, extended_limits, effect_sizes : optional
         The analyses (:meth:`deepwell.results.Analyses.report_kwargs`); each adds its section.
     robustness : str, optional
@@ -481,7 +481,7 @@ def save_report(result, final_dir, analyses, replace=False, figures=True, extra=
     """Write the report into a temporary folder and install it at ``final_dir``.
 
     The final folder is only touched once every file exists; see
-    :mod:`deepwell.outdir` for the rules (``replace`` and foreign files).
+    :mod:`deepwell.report.outdir` for the rules (``replace`` and foreign files).
 
     ``analyses``: from :func:`deepwell.results.analyse` (see :func:`write_report`).
 

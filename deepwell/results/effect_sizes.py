@@ -109,7 +109,7 @@ def star_effect_sizes(result):
 
     Parameters
     ----------
-    result : deepwell.results.FitResult
+    result : deepwell.fit.result.FitResult
 
     Returns
     -------
@@ -186,7 +186,7 @@ def extended_mass_limits(observations, settings, scale_radii_au, fit=None):
     Parameters
     ----------
     observations : deepwell.tables.Observations
-    settings : deepwell.settings.Settings
+    settings : deepwell.tables.settings.Settings
         The fit's settings; the extended mass is switched on here (f and f_sp
         stay as the settings have them).
     scale_radii_au : sequence of float

@@ -7,7 +7,7 @@ the radii the stars sample, trace M(<r).  :func:`consistency_chi2` asks whether
 they agree with one point mass.  Pure model curves (point mass, + Plummer
 sphere, + broken power-law cusp), a reader of external mass constraints and an
 astropy Table of the profile complete the physics; the figure lives in
-:mod:`deepwell.profile_figure`.
+:mod:`deepwell.report.figures.enclosed`.
 
 Internal units: radii in au (pc only where named ``_pc``), masses in Msun.
 
@@ -20,7 +20,6 @@ Caveats stated in every output (:attr:`EnclosedMassProfile.notes`):
 * short arcs give per-star masses whose linearised errors may be unreliable.
 """
 
-import copy
 import math
 from dataclasses import dataclass, field
 
@@ -114,9 +113,8 @@ def _refit_star(result, k):
     model = jm.for_stars([star])  # same effects and priors, this star only
     if any(p.star is None and p.name == "mass" for p in model.priors):
         # A prior on the joint mass must not pull the per-star mass: drop its row.
-        model = copy.copy(model)
-        model.priors = tuple(p for p in model.priors if p.star is not None or p.name != "mass")
-        model._prior_index = [model._prior_slot(p) for p in model.priors]
+        model = model.replace(priors=[p for p in model.priors
+                                      if p.star is not None or p.name != "mass"])
     ns = model.layout.n_shared
     vec0 = np.concatenate([result.internal[:ns],
                            result.internal[ns + 6 * k: ns + 6 * k + 6]])
@@ -146,7 +144,7 @@ def star_masses(result):
 
     Parameters
     ----------
-    result : deepwell.results.FitResult
+    result : deepwell.fit.result.FitResult
         A joint fit; its distance and frame (x0, y0, vx0, vy0, vz0) are held fixed,
         its star elements are the starting point of each refit.
 
@@ -317,7 +315,7 @@ def model_curves(r_au, mass, settings=None):
 def no_dark_cluster_radius_au(mass, galaxy_age_yr=GALAXY_AGE_YR):
     """Radius (au) inside which no dark cluster of ``mass`` (Msun) outlives ``galaxy_age_yr``.
 
-    Every constituent of deepwell.compactness.CONSTITUENTS has a maximum lifetime
+    Every constituent of deepwell.results.compactness.CONSTITUENTS has a maximum lifetime
     below the age there; the lifetime grows with radius, so this is one radius.
     """
     def log_excess(log_r):

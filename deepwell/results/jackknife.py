@@ -23,7 +23,6 @@ import numpy as np
 from scipy import stats
 
 from deepwell.core.errors import DeepwellError
-from deepwell.core.parameters import STAR_INTERNAL
 from deepwell.fit.joint import build_model, fit_joint
 from deepwell.fit.least_squares import bounds, minimise
 from deepwell.fit.result import assemble_result
@@ -125,30 +124,19 @@ def _settings_for(settings, observations, sub, by, unit):
 
 
 def _start_vector(full, model):
-    """The full fit's solution mapped onto a leave-one-out model's layout."""
-    fm, fv = full.model, full.internal
-    fnames = fm.layout.names()
-    lay = model.layout
-    vec = np.zeros(lay.size)
-    for i, name in enumerate(lay.shared_names):
-        src = name
-        if model.datasets is not None and name in model.datasets.names and name != "outlier_frac":
-            kind, d, term = model.datasets.describe(name)
-            src = None
-            if fm.datasets is not None:
-                for n, k, dd, t in fm.datasets.terms:
-                    if (k, dd, t) == (kind, d, term):
-                        src = n
-        if src in fnames:
-            vec[i] = fv[fnames.index(src)]
-        else:
-            vec[i] = (model.datasets.start_value(name, model)
-                      if model.datasets is not None and name in model.datasets.names else 0.0)
-    n6 = len(STAR_INTERNAL)
-    for k, s in enumerate(lay.stars):
-        j = fm.stars.index(s)
-        vec[lay.n_shared + n6 * k:lay.n_shared + n6 * (k + 1)] = \
-            fv[fm.layout.n_shared + n6 * j:fm.layout.n_shared + n6 * (j + 1)]
+    """The full fit's solution on a leave-one-out model's layout (names are stable).
+
+    Parameters the full fit does not have (a data-set term that only the
+    smaller data set needs) start at their usual starting values.
+    """
+    full_vec = dict(zip(full.model.layout.names(), full.internal, strict=True))
+    terms = model.datasets
+    vec = np.zeros(model.layout.size)
+    for i, name in enumerate(model.layout.names()):
+        if name in full_vec:
+            vec[i] = full_vec[name]
+        elif terms is not None and name in terms.names:
+            vec[i] = terms.start_value(name, model)
     return vec
 
 
@@ -170,7 +158,7 @@ def jackknife(observations, settings, by="star", result=None, progress=None):
     Parameters
     ----------
     observations : deepwell.tables.Observations
-    settings : deepwell.settings.Settings
+    settings : deepwell.tables.settings.Settings
     by : {"star", "dataset"}
     result : FitResult, optional
         The full fit (made here if not given); refits start from it.

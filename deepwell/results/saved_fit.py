@@ -4,7 +4,7 @@ The report folder holds ``fit-state.json``: the internal vector, its
 covariance, which entries were fitted, the effect set-up, the settings and the
 scenario folder with the checksums of its tables.  :func:`load_fit` re-reads
 the tables (refusing them if they changed), rebuilds the same model and
-returns a :class:`~deepwell.results.FitResult` equal to the saved one, so later
+returns a :class:`~deepwell.fit.result.FitResult` equal to the saved one, so later
 commands (planning, sampling) start from a finished fit without refitting.
 """
 

@@ -169,7 +169,7 @@ def datasets_from_args(settings, reference=None, offsets=None, drifts=None, zero
 
     Parameters
     ----------
-    settings : deepwell.settings.Settings
+    settings : deepwell.tables.settings.Settings
     reference : str or sequence of str, optional
         Reference data set(s) (no offset, no zero-point).
     offsets, drifts, zero_points : bool, optional
@@ -182,7 +182,7 @@ def datasets_from_args(settings, reference=None, offsets=None, drifts=None, zero
 
     Returns
     -------
-    deepwell.settings.Settings
+    deepwell.tables.settings.Settings
         A new settings object, validated (SettingsError otherwise).
     """
     ds = dict(settings.datasets)

@@ -152,7 +152,7 @@ def effects_from_args(settings, romer=None, redshift=None, precession=None,
 
     Parameters
     ----------
-    settings : deepwell.settings.Settings
+    settings : deepwell.tables.settings.Settings
     romer, precession, extended_mass : bool or None
         Switch an effect on or off; None keeps the settings file's choice.
     redshift : {"exact", "first-order", "off"} or None
@@ -166,7 +166,7 @@ def effects_from_args(settings, romer=None, redshift=None, precession=None,
 
     Returns
     -------
-    deepwell.settings.Settings
+    deepwell.tables.settings.Settings
         A new, validated settings object.
     """
     table = {} if newtonian else dict(settings.effects)

@@ -24,6 +24,7 @@ from astropy.utils.exceptions import AstropyWarning
 from erfa import ErfaWarning
 
 from deepwell.core.errors import InputError
+from deepwell.core.units import UNITS
 
 __all__ = ["DataWarning", "Observations", "read_positions", "read_velocities",
            "read_observations"]
@@ -33,8 +34,8 @@ _REQUIRED = {"positions": ("star", "epoch", "ra", "dec", "ra_err", "dec_err"),
 _OPTIONAL = {"positions": ("corr", "dataset", "relative_to", "exclude"),
              "velocities": ("dataset", "exclude")}
 _COLUMNS = {kind: (*_REQUIRED[kind], *_OPTIONAL[kind], "line", "file") for kind in _REQUIRED}
-_UNITS = {"ra": u.mas, "dec": u.mas, "ra_err": u.mas, "dec_err": u.mas,
-          "vr": u.km / u.s, "vr_err": u.km / u.s, "corr": u.dimensionless_unscaled}
+#: Internal units of the numeric columns (from the one unit table).
+_UNITS = {k: u.Unit(UNITS[k]) for k in ("ra", "dec", "ra_err", "dec_err", "vr", "vr_err", "corr")}
 _TEXT = ("star", "dataset", "relative_to", "exclude")
 _TRUE, _FALSE = {"true", "yes", "1"}, {"false", "no", "0", ""}
 

@@ -37,7 +37,7 @@ Example::
                                   # mass inside reference_radius / point mass) is
                                   # fitted whenever the extended mass is on
 
-    [datasets]                    # per-data-set terms (deepwell.datasets); all off
+    [datasets]                    # per-data-set terms (deepwell.model.datasets); all off
     reference = "imager-A"        # set(s) without offset / zero-point (a name or list)
     offsets = false               # frame offset dx, dy for every other imaging set
     drifts = false                # and an offset drift dvx, dvy (mas/yr)
@@ -52,8 +52,8 @@ Example::
     outlier_width = 20.0          # width of the outlier Gaussian, in units of the error
     exclude_rows = [{file = "positions.csv", line = 17}]   # left out, not deleted
 
-See :mod:`deepwell.effects` for the model behind each switch, and
-:mod:`deepwell.datasets` / :mod:`deepwell.robust` for the data-set terms,
+See :mod:`deepwell.model.effects` for the model behind each switch, and
+:mod:`deepwell.model.datasets` / :mod:`deepwell.model.likelihood` for the data-set terms,
 the likelihoods and the names of their parameters.  For the effect
 strengths (``f``, ``f_sp``, ``ext_fraction``) the keys of a ``[shared.NAME]``
 table that are left out keep the parameter's defaults (``f`` and ``f_sp``:
@@ -144,11 +144,11 @@ class Settings:
                 "datasets": dict(self.datasets), "fit": dict(self.fit)}
 
     def effect_switches(self):
-        """The validated :class:`deepwell.effects.Effects` (defaults fill the gaps)."""
+        """The validated :class:`deepwell.tables.effects` (defaults fill the gaps)."""
         return parse_effects(self.effects, file=self.source)
 
     def dataset_config(self):
-        """The validated :class:`deepwell.datasets.DatasetConfig` of [datasets] and [fit]."""
+        """The validated :class:`deepwell.tables.datasets` of [datasets] and [fit]."""
         return parse_datasets(self.datasets, self.fit, file=self.source)
 
 

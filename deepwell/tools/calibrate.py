@@ -4,7 +4,7 @@
 scenario (a folder holding ``description.toml``, or the description file
 itself) from its true parameters, fits each one, and counts how often the 68%
 and 95% intervals of every fitted shared parameter contain the true value.
-Each trial is a complete re-simulation (:func:`deepwell.simulate.simulate`
+Each trial is a complete re-simulation (:func:`deepwell.tools.simulate.simulate`
 with a fresh random generator): new noise *and* new epoch jitter and coverage
 draws, so the coverage is that of the observing design, not of one epoch list.
 
@@ -12,7 +12,7 @@ Intervals checked
     least squares (default): value +- 1 sigma (68.27%) and +- 1.96 sigma (95%)
     from the fit's covariance; ``--sample``: the central 68.27% and 95%
     posterior intervals (percentiles of all draws of
-    :func:`deepwell.sampling.sample_posterior`), point value the median.
+    :func:`deepwell.fit.sampling.sample_posterior`), point value the median.
 
 Verdict
     With n usable trials and nominal level p, an honest interval contains the
@@ -41,7 +41,7 @@ Dask
 
 Journal
     Finished trials are saved one by one to ``OUT.trials.jsonl``
-    (:mod:`deepwell.calibrate_journal`); ``--resume`` continues a run that
+    (:mod:`deepwell.tools.journal`); ``--resume`` continues a run that
     was interrupted.
 
 Documented demo (not in the default test suite; ~2.5 h on 2 cores; result in README)::
@@ -151,8 +151,8 @@ def clopper_pearson(k, n, level=BAND_LEVEL):
 class TrialSpec:
     """Everything a worker needs for one trial (small and picklable)."""
 
-    description: object  # deepwell.simulate.ScenarioDescription
-    settings: object  # deepwell.settings.Settings
+    description: object  # deepwell.tools.simulate.ScenarioDescription
+    settings: object  # deepwell.tables.settings.Settings
     names: tuple  # calibrated shared parameters
     seed: int
     sample: SamplerOptions | None = None
@@ -477,11 +477,11 @@ def calibrate(description, n_trials, seed=0, settings=None, sample=None, client=
 
     Parameters
     ----------
-    description : deepwell.simulate.ScenarioDescription
+    description : deepwell.tools.simulate.ScenarioDescription
     n_trials : int
     seed : int
         Root of the per-trial seeds (module docstring).
-    settings : deepwell.settings.Settings, optional
+    settings : deepwell.tables.settings.Settings, optional
         Fit settings; by default their effects match the scenario (:func:`fit_settings`).
     sample : deepwell.fit.sampling.SamplerOptions, optional
         Check posterior intervals instead of least-squares ones.
@@ -490,7 +490,7 @@ def calibrate(description, n_trials, seed=0, settings=None, sample=None, client=
     progress : bool or tqdm-like, optional
     journal : str or Path, optional
         Save each finished trial there as it arrives
-        (:class:`deepwell.calibrate_journal.TrialJournal`).
+        (:class:`deepwell.tools.journal.TrialJournal`).
     resume : bool
         Skip the trials already in ``journal``.
 

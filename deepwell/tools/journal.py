@@ -8,7 +8,7 @@ calibrated (scenario, seed, mode, parameters); a run started with
 record.  Each line is flushed and synced to disk before the next trial is
 counted, so a killed run (even ``kill -9``) loses at most the trials that
 were still running; a half-written last line is ignored.  Trial ``i`` always
-has the same seed (see :mod:`deepwell.calibrate`), so a resumed calibration
+has the same seed (see :mod:`deepwell.tools.calibrate`), so a resumed calibration
 equals an uninterrupted one.  The journal is deleted once the output folder
 is installed.
 """

@@ -1,11 +1,11 @@
 """Plan the next observations from a finished fit.
 
-From a saved fit (:func:`deepwell.state.load_fit`) this module predicts where
+From a saved fit (:func:`deepwell.results.saved_fit.load_fit`) this module predicts where
 every star will be, when it passes pericentre and apocentre, when two stars
 are too close on the sky to be measured apart, and which candidate epochs
 would shrink the errors of the mass, the distance and the effect strengths
 f and f_sp the most.  :func:`make_plan` does the computation and returns a
-:class:`Plan`; :func:`deepwell.plan_figures.write_plan` writes it out;
+:class:`Plan`; :func:`deepwell.report.plan.write_plan` writes it out;
 :func:`add_plan_parser` / :func:`run_plan` are the ``deepwell plan`` command.
 
 Uncertainties come from draws of the internal vector: the least-squares
@@ -36,9 +36,9 @@ import pandas as pd
 
 from deepwell.core.constants import C_AU_PER_YR
 from deepwell.core.errors import InputError
-from deepwell.fit.least_squares import default_steps, numerical_jacobian
+from deepwell.fit.jacobian import default_steps, numerical_jacobian
+from deepwell.model.epochs import observations_at
 from deepwell.results.effect_sizes import pericentre_epochs
-from deepwell.tables.observations import Observations
 
 __all__ = ["PlanSettings", "Plan", "make_plan", "synthetic_model", "draw_vectors",
            "predict_grid", "position_ellipse", "next_passages", "information_gain",
@@ -149,17 +149,8 @@ def synthetic_model(model, epochs, pos_err=1.0, vel_err=10.0, stars=None,
     this model are meaningful).  Effects, integrated flags and the reference
     radius are those of ``model``; it has no priors.
     """
-    stars = list(model.stars if stars is None else stars)
-    t = np.asarray(epochs, float)
-    star_col = np.repeat(stars, t.size)
-    t_col = np.tile(t, len(stars))
-    n = t_col.size
-    common = {"star": star_col, "epoch": t_col, "dataset": "planned", "exclude": False,
-              "line": np.arange(n), "file": "planned"}
-    pos = pd.DataFrame({**common, "ra": 0.0, "dec": 0.0, "ra_err": pos_err,
-                        "dec_err": pos_err, "corr": 0.0, "relative_to": relative_to})
-    vel = pd.DataFrame({**common, "vr": 0.0, "vr_err": vel_err})
-    obs = Observations(pos, vel, (), {}, "")
+    obs = observations_at(model.stars if stars is None else stars, epochs, epochs, pos_err,
+                          vel_err, relative_to, dataset="planned")
     return model.replace(observations=obs, priors=(), datasets=None)
 
 
@@ -265,7 +256,7 @@ def next_passages(result, start, draws):
     best fit; the spread over ``draws`` gives the sigma (for Gaussian draws
     this is the delta method: var = var t_p + n^2 var P + 2 n cov).  For
     integrated stars the best-fit offset of the integrated pericentre
-    (:func:`deepwell.effect_summary.pericentre_epochs`) and period is added.
+    (:func:`deepwell.results.effect_sizes.pericentre_epochs`) and period is added.
     With the Romer delay the light time z/c of the best fit is added, so the
     epochs are as observed.
     """
@@ -544,7 +535,7 @@ def make_plan(result, settings, samples=None):
 
     Parameters
     ----------
-    result : deepwell.results.FitResult
+    result : deepwell.fit.result.FitResult
     settings : PlanSettings
     samples : ndarray, optional
         Posterior samples of the internal vector, shape (..., n_internal).

@@ -37,7 +37,8 @@ Model: frame positions ra = x0 + vx0 (t - t_ref) + east(t), dec = y0 + vy0
 RV = vz0 + v_z(t) (+ f times the exact redshift excess); Gaussian noise with the
 stated errors; periods from Kepler's third law with the shared mass and
 distance.  With the Romer delay the orbit is taken at the emission epoch.  With
-precession or a Plummer mass the orbit is integrated (deepwell.pn) from the
+precession or a Plummer mass the orbit is integrated
+(deepwell.model.kernels.post_newtonian) from the
 star's elements taken as osculating Keplerian elements at its apocentre epoch
 t_peri + P/2; truth.json then also gives each star's ``osculating_epoch``.  The
 effects are evaluated with the relativity kernels directly, not through the
@@ -418,7 +419,8 @@ class _Track:
 def _true_track(t, el, angles, period, sh, fx):
     """True track at observed epochs ``t`` with the description's effects.
 
-    Evaluated straight from the kernels (deepwell.orbit, deepwell.relativity),
+    Evaluated straight from the kernels (deepwell.model.kernels.orbit and
+    deepwell.model.kernels.relativity),
     not through the fitter's model, so that a slip in that wiring cannot hide.
     """
     kms = sh.distance * 1e-3 * KMS_PER_AU_PER_YR  # mas/yr -> km/s

@@ -55,7 +55,7 @@ def main(argv=None):
     print(f"least-squares fit: {time.perf_counter() - t0:.1f} s, "
           f"{result.n_free} free parameters, effects: {'off' if args.newtonian else 'default'}")
     target = LogPosterior(result)
-    shared = [i for i, n in enumerate(target.names) if not n.startswith("s")]
+    shared = [i for i, n in enumerate(target.names) if ":" not in n]
 
     # 1. NUTS until the rule
     start = time.perf_counter()

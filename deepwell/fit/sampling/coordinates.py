@@ -16,7 +16,7 @@ state
     Gaussian even where the elements are degenerate (nearly face-on or
     nearly circular orbits, where node, w and t_peri trade off).  The map to
     the elements depends on the mass and distance through GM (angular
-    units, :func:`deepwell.orbit.gm_angular`).  Position and velocity are
+    units, :func:`deepwell.model.kernels.orbit.gm_angular`).  Position and velocity are
     canonical coordinates and so are the Delaunay variables L = sqrt(GM a),
     G = L sqrt(1 - e^2), H = G cos i, l = mean anomaly, g = w, h = node
     (e.g. Murray & Dermott 1999, Solar System Dynamics, section 2.10, from
@@ -76,7 +76,7 @@ class SamplingCoordinates:
 
     Parameters
     ----------
-    target : deepwell.sampling.target.LogPosterior
+    target : deepwell.fit.sampling.target.LogPosterior
     centre : ndarray, shape (n,)
         A point of theta (the least-squares values): picks each star's kind,
         the branch of the node and of t_peri, and the difference steps.

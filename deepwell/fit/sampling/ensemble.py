@@ -3,7 +3,7 @@
 The loop is deliberately thin.  It receives a vectorised log-probability, the
 starting positions, a :class:`numpy.random.Generator` and a small set of
 options; emcee's differential-evolution moves make the proposals; storage
-goes through :mod:`deepwell.sampling.backend`; progress goes to a tqdm bar or
+goes through :mod:`deepwell.fit.sampling.backend`; progress goes to a tqdm bar or
 to a do-nothing object with the same interface, so the loop has no
 ``if progress`` branches.
 

@@ -2,14 +2,14 @@
 
 Coordinates
     z = L^-1 (theta - centre), with theta the sampled entries of the internal
-    vector (:class:`deepwell.sampling.target.LogPosterior`) and L L^T a
+    vector (:class:`deepwell.fit.sampling.target.LogPosterior`) and L L^T a
     covariance (at first the least-squares one).  In z the posterior of a
     well-measured data set is close to a unit Gaussian, which is what lets a
     Hamiltonian sampler with a unit mass matrix take large steps.
 
 Per-star coordinates
     Before whitening, each star's elements are mapped to the coordinates of
-    :mod:`deepwell.sampling.coordinates` (its position and velocity at the
+    :mod:`deepwell.fit.sampling.coordinates` (its position and velocity at the
     mean epoch of its data for a partly covered orbit, its mean argument of
     latitude instead of t_peri otherwise); the density carries the Jacobian
     of that map, so the sampled posterior of theta is unchanged.
@@ -23,7 +23,7 @@ Gradient
         d logp / d theta = -(dr/dtheta)^T (M r) + d log J / d theta
 
     dr/dtheta comes from forward differences (step 1e-6 standard deviations)
-    with the column grouping of :func:`deepwell.fit.numerical_jacobian`
+    with the column grouping of :func:`deepwell.fit.jacobian`
     (element j of every star at once), so one gradient costs one vectorised
     model call of 1 + n_shared + 6 rows, whatever the number of stars.  The gradient is therefore an
     approximation, but a deterministic function of z: the leapfrog map stays
@@ -47,7 +47,7 @@ class WhitenedTarget:
 
     Parameters
     ----------
-    target : deepwell.sampling.target.LogPosterior
+    target : deepwell.fit.sampling.target.LogPosterior
     centre : ndarray, shape (n,)
         theta at z = 0.
     cov : ndarray, shape (n, n)
@@ -60,7 +60,7 @@ class WhitenedTarget:
         the whitening; used after the warm-up adapts the metric).
     state_arc : float
         Data span (fraction of the period) below which a star moves in its
-        state (:class:`~deepwell.sampling.coordinates.SamplingCoordinates`).
+        state (:class:`~deepwell.fit.sampling.coordinates.SamplingCoordinates`).
     """
 
     def __init__(self, target, centre, cov, rel_step=1e-6, cov_u=None, state_arc=STATE_ARC):

@@ -2,7 +2,7 @@
 
 Warm-up of ``n_warmup`` transitions (none of them kept)
     * all of it: the step size is adapted by dual averaging
-      (:class:`deepwell.sampling.nuts.DualAveraging`);
+      (:class:`deepwell.fit.sampling.nuts.DualAveraging`);
     * two windows, transitions 10%-35% and 35%-75%: at the end of each the
       window's draws give a new whitening (metric, :func:`adapted_cov`:
       the previous one rescaled to the draws' widths, blended with their
@@ -17,7 +17,7 @@ Draws
 Checkpoints
     The complete state (position, gradient, step-size adaptation, metric,
     warm-up window, draws, random-generator state) goes to one HDF5 file
-    written atomically (:func:`deepwell.sampling.backend.save_state`) every
+    written atomically (:func:`deepwell.fit.sampling.backend.save_state`) every
     ``checkpoint_every`` transitions, so a resumed chain continues the
     uninterrupted one bit for bit.
 """
@@ -119,7 +119,7 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
               max_time=None, progress=False, stop_rule=None, check_every=50,
               max_draws=20_000, min_draws=200, max_depth=8, adapt_metric=True,
               desc="chain", position=0, state_arc=STATE_ARC):
-    """Run one NUTS chain on a :class:`~deepwell.sampling.target.LogPosterior`.
+    """Run one NUTS chain on a :class:`~deepwell.fit.sampling.target.LogPosterior`.
 
     Parameters
     ----------
@@ -136,7 +136,7 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
         Kept draws; None: until ``stop_rule(chain, 1)`` holds and at least
         ``min_draws`` are kept, at most ``max_draws``.
     checkpoint, fingerprint, resume, checkpoint_every :
-        HDF5 checkpointing as in :func:`deepwell.sampling.core.run_ensemble`.
+        HDF5 checkpointing as in :func:`deepwell.fit.sampling.ensemble.run_ensemble`.
     max_time : float, optional
         Wall-time budget (s) of this session.
     max_depth : int
@@ -145,7 +145,7 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
         Replace the least-squares whitening by the warm-up covariance.
     state_arc : float
         Stars whose data span less than this fraction of their period move in
-        their position and velocity (:mod:`deepwell.sampling.coordinates`).
+        their position and velocity (:mod:`deepwell.fit.sampling.coordinates`).
 
     Returns
     -------

@@ -2,7 +2,7 @@
 
 Pure algorithm, no I/O: :func:`nuts_step` makes one transition of a
 log-density given as ``f(z) -> (log p, gradient)`` with a unit mass matrix
-(the whitening of :mod:`deepwell.sampling.gradient` plays the role of the
+(the whitening of :mod:`deepwell.fit.sampling.gradient` plays the role of the
 metric), drawing every random number from the Generator passed in.
 
 Transition (multinomial NUTS)

@@ -67,7 +67,7 @@ class PosteriorResult:
     Attributes
     ----------
     labels, units : tuple of str
-        Reported quantities (as :func:`deepwell.results.physical_labels`) and units.
+        Reported quantities (as :func:`deepwell.fit.result.physical_labels`) and units.
     samples : ndarray, shape (n_ensembles, n_draws, n_walkers, n_labels)
         Reported quantities after burn-in, every ``thin`` steps; angles in
         degrees, unwrapped.
@@ -192,8 +192,9 @@ def start_positions(target, result, n_walkers, rng, max_rounds=200):
 
 
 def _unit(label, layout):
-    name = label.split(":")[-1]
-    return UNITS[name] if name in UNITS else layout.spec(name).unit
+    if label in layout.shared_names:
+        return layout.spec(label).unit
+    return UNITS[label.split(":")[-1]]
 
 
 def _stop_rule(chain, thin):
@@ -307,12 +308,12 @@ class SamplerOptions:
         Chains run in parallel (default: min(n_chains, CPU count)).
     marginalise : bool or sequence of str
         Integrate the frame terms out analytically (see
-        :mod:`deepwell.sampling.target`).
+        :mod:`deepwell.fit.sampling.target`).
     sampler : {"nuts", "ensemble"}
         "nuts": No-U-Turn Hamiltonian chains in coordinates whitened by the
         least-squares covariance, then by the warm-up covariance
-        (:mod:`deepwell.sampling.hamiltonian`); "ensemble": emcee ensembles
-        (:mod:`deepwell.sampling.core`).
+        (:mod:`deepwell.fit.sampling.hamiltonian`); "ensemble": emcee ensembles
+        (:mod:`deepwell.fit.sampling.ensemble`).
     moves : {"de", "stretch"} or list of (move, weight)
         Ensemble moves: "de" differential evolution 80% + snooker 20%;
         "stretch" emcee's affine-invariant stretch move.

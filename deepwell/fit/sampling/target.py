@@ -1,7 +1,7 @@
 """The log-posterior of the joint model, with the linear frame terms integrated out.
 
 Sampled coordinates are the free entries of the internal vector
-(:mod:`deepwell.parameters`): mass, distance, the frame terms, and per star
+(:mod:`deepwell.core.parameters`): mass, distance, the frame terms, and per star
 period, sqrt(e) cos w, sqrt(e) sin w, cos i, node, t_peri.  A flat density in
 these coordinates implies, for the reported quantities:
 
@@ -56,7 +56,7 @@ class LogPosterior:
 
     Parameters
     ----------
-    result : deepwell.results.FitResult
+    result : deepwell.fit.result.FitResult
         Supplies the model, the settings (bounds, priors, fixed entries) and the
         values of fixed parameters.
     marginalise : bool or sequence of str

@@ -4,7 +4,7 @@ A fixed-step eighth-order Runge-Kutta integrator in a regularised time,
 compiled with numba and vectorised over many orbits (stars, walkers).  Units:
 au, Julian yr, solar masses; GM in au^3/yr^2; state vectors are ordered
 (east, north, z) with z away from the observer, the axes of
-:func:`deepwell.orbit.thiele_innes`.
+:func:`deepwell.model.kernels.orbit.thiele_innes`.
 
 Design
 ------
@@ -314,7 +314,8 @@ def osculating_state(a_au, e, inc, node, peri_arg, t_peri, t_ref, mass):
     a_au : array_like
         Semi-major axis, au.
     e, inc, node, peri_arg : array_like
-        Eccentricity and angles (radians) as in :func:`deepwell.orbit.keplerian_track`.
+        Eccentricity and angles (radians) as in
+        :func:`deepwell.model.kernels.orbit.keplerian_track`.
     t_peri, t_ref : array_like
         Pericentre epoch and reference epoch (Julian yr).
     mass : array_like

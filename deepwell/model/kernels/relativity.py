@@ -2,12 +2,12 @@
 
 Internal units: au, Julian yr, solar masses, km/s, angles in radians (sky
 offsets in mas only in :func:`effect_sizes`).  Axes (east, north, z) with z
-away from the observer, as in :mod:`deepwell.orbit`.
+away from the observer, as in :mod:`deepwell.model.kernels.orbit`.
 
 * Romer delay: :func:`romer_delay_days`, :func:`emission_epochs`.
 * Redshift: :func:`redshift_velocity` (exact or first order, scaled by f).
 * Schwarzschild precession and a Plummer sphere: the orbit integrator lives
-  in :mod:`deepwell.pn` and is re-exported here (:func:`integrate_orbits`,
+  in :mod:`deepwell.model.kernels.post_newtonian` and is re-exported here (:func:`integrate_orbits`,
   :func:`osculating_state`, :func:`pn_track`); the analytic per-orbit
   advances are :func:`precession_per_orbit_rad` and
   :func:`plummer_precession_per_orbit_rad`.
@@ -329,7 +329,7 @@ def keplerian_emission_track(t, a, ecc, inc, node, peri_arg, t_peri, period, dis
                              romer=True, n_newton=2):
     """Keplerian track at the emission epochs of light observed at ``t``.
 
-    Parameters are those of :func:`deepwell.orbit.keplerian_track` (``a`` in
+    Parameters are those of :func:`deepwell.model.kernels.orbit.keplerian_track` (``a`` in
     mas, angles in radians, epochs in Julian yr, ``distance`` in pc).
 
     Returns
@@ -369,7 +369,7 @@ def keplerian_emission_track(t, a, ecc, inc, node, peri_arg, t_peri, period, dis
 def star_sky_precession_mas(el, mass, distance):
     """Sky shift per orbit of each star's Schwarzschild precession, mas.
 
-    ``el`` is the dict of :meth:`deepwell.parameters.Layout.elements` for one
+    ``el`` is the dict of :meth:`deepwell.model.layout.Layout.elements` for one
     vector; ``mass`` (Msun) and ``distance`` (pc) are scalars.
     """
     a_au = el["a"] * 1e-3 * distance

@@ -49,11 +49,11 @@ def redshift_curves(result, star, sizes=None, half_width=None, n=801):
 
     Parameters
     ----------
-    result : deepwell.results.FitResult
+    result : deepwell.fit.result.FitResult
         A fit whose model includes the redshift (``f`` in the layout).
     star : str
     sizes : dict, optional
-        The star's entry of :func:`deepwell.effect_summary.star_effect_sizes`
+        The star's entry of :func:`deepwell.results.effect_sizes.star_effect_sizes`
         (gives the observed pericentre epoch and integrated period).
     half_width : float, optional
         Half the time window (yr); default a tenth of the period, at most 2 yr.

@@ -1,4 +1,4 @@
-"""Figure of the enclosed-mass profile (plotting only; the physics is in deepwell.profile).
+"""Figure of the enclosed-mass profile (plotting only; the physics is in deepwell.results.enclosed).
 
 :func:`figure_data` gathers everything to draw as plain arrays (a pure function);
 :func:`plot_enclosed_mass` draws it on a matplotlib Figure with the Agg canvas (no
@@ -76,11 +76,11 @@ def plot_enclosed_mass(profile, path_stem, model_settings=None,
 
     Parameters
     ----------
-    profile : deepwell.profile.EnclosedMassProfile
+    profile : deepwell.results.enclosed.EnclosedMassProfile
     path_stem : str or Path
         Output path without suffix; the folder must exist.
     model_settings : dict, optional
-        Overrides of deepwell.profile.DEFAULT_MODEL_SETTINGS.
+        Overrides of deepwell.results.enclosed.DEFAULT_MODEL_SETTINGS.
     models : tuple of str
         Model curves to draw.
     galaxy_age_yr : float

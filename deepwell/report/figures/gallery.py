@@ -17,19 +17,19 @@ def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=
 
     Parameters
     ----------
-    result : deepwell.results.FitResult
+    result : deepwell.fit.result.FitResult
     folder : str or Path
         Created if missing.
     formats : tuple of str, optional
         File formats; PDF is vector, PNG uses STYLE["savefig.dpi"] (200).
-    posterior : deepwell.sampling.PosteriorResult, optional
+    posterior : deepwell.fit.sampling.PosteriorResult, optional
         Adds posterior-predictive orbits and bands, a corner plot of the
         shared parameters (``corner``) and the mass-distance posterior
         (``mass_distance``).
     effect_sizes : dict, optional
-        From :func:`deepwell.effect_summary.star_effect_sizes`: adds the
+        From :func:`deepwell.results.effect_sizes.star_effect_sizes`: adds the
         redshift and precession figures of the stars where the effect exceeds
-        the errors (see :func:`deepwell.figures_effects.effect_figure_jobs`).
+        the errors (see :func:`deepwell.report.figures.effects.effect_figure_jobs`).
 
     Returns
     -------

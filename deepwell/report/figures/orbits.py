@@ -102,7 +102,7 @@ def sky_figure(result, draws=None):
 
     When the orbits span very different sizes a second panel zooms on the
     inner half of them.  ``draws`` (internal vectors from the posterior, see
-    :func:`deepwell.figures_posterior.predictive_draws`) adds their orbits as
+    :func:`deepwell.report.figures.posterior.predictive_draws`) adds their orbits as
     thin lines.
 
     Returns

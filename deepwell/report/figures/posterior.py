@@ -4,7 +4,7 @@ Pure functions compute what is drawn (:func:`credible_levels`,
 :func:`mass_distance_data`, :func:`predictive_draws`, :func:`velocity_band`,
 :func:`sky_draw_tracks`); the ``*_figure`` functions only draw.  Figures use
 the Agg canvas without pyplot state and deepwell's STYLE, like
-:mod:`deepwell.figures`.
+:mod:`deepwell.report.figures`.
 """
 
 import matplotlib
