@@ -132,6 +132,25 @@ def test_sampling_block_records_the_diagnostics(posterior, post_report):
     assert s["implied_priors"] == list(posterior.implied_priors)
 
 
+def test_posterior_is_written_as_inference_data_that_arviz_reads_back(posterior, post_report):
+    # arviz's own netCDF reader (an outside library) must give back every draw with its unit.
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FutureWarning)
+        import arviz as az
+    data = az.from_netcdf(str(post_report / "posterior.nc"))
+    value = data.posterior["value"]
+    assert list(value.coords["quantity"].values) == list(posterior.labels)
+    assert list(value.coords["unit"].values) == list(posterior.units)
+    for label in ("mass", "distance", "t-1:e"):
+        got = value.sel(quantity=label).values  # (chain, draw)
+        np.testing.assert_array_equal(got.ravel(), _samples(posterior, label))
+    assert data.posterior.sizes["chain"] == 2 and "lp" in data.sample_stats
+    assert data.posterior.attrs["statement"] == posterior.statement
+    assert data.posterior.attrs["converged"] == 0
+
+
 def test_not_converged_warning_heads_the_report(posterior, post_report):
     lines = (post_report / "report.md").read_text().splitlines()
     assert lines[0].startswith("**WARNING") and "did NOT converge" in lines[0]

@@ -11,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from scipy import integrate
+from scipy import integrate, stats
 
 from deepwell.core.parameters import EXTRA
 from deepwell.fit.joint import build_model, fit_joint
@@ -21,11 +21,11 @@ from deepwell.fit.sampling import (
     SamplerOptions,
     SamplingWarning,
     gelman_rubin,
+    rank_rhat,
     run_ensemble,
     sample_posterior,
-    split_rhat,
 )
-from deepwell.fit.sampling.convergence import autocorr_times, quantile_summary
+from deepwell.fit.sampling.convergence import autocorr_times, ess_bulk_tail, quantile_summary
 from deepwell.model.layout import internal_star_values
 from deepwell.tables.observations import read_observations
 from deepwell.tables.settings import parse_settings
@@ -167,21 +167,70 @@ def _bimodal(x):
 
 
 def test_rhat_near_one_for_independent_ensembles_and_large_for_separated_modes():
-    """Converged independent ensembles give R-hat < 1.01 (Vehtari et al. 2021,
-    Bayesian Anal. 16, 667, recommend 1.01); two ensembles stuck in different
+    """Converged independent ensembles give rank-normalised R-hat < 1.01 (Vehtari et al.
+    2021, Bayesian Anal. 16, 667, recommend 1.01); two ensembles stuck in different
     modes of a bimodal target give R-hat far above 1.1 (BDA3 threshold)."""
     lp = gaussian_log_prob(np.zeros(2), np.eye(2))
     runs = []
     for seed in (1, 2):
         rng = np.random.default_rng(seed)
         runs.append(run_ensemble(lp, rng.standard_normal((16, 2)), rng, n_steps=2000))
-    assert np.all(split_rhat([r.chain[200:] for r in runs]) < 1.01)
+    assert np.all(rank_rhat([r.chain[200:] for r in runs]) < 1.01)
+    # Each ensemble confined to one mode of the bimodal target (the DE moves of a free
+    # ensemble can jump between the modes, which would make the chains agree).
     stuck = []
     for seed, centre in ((3, -6.0), (4, 6.0)):
         rng = np.random.default_rng(seed)
         p0 = centre + 0.3 * rng.standard_normal((16, 2))
-        stuck.append(run_ensemble(_bimodal, p0, rng, n_steps=500).chain[100:])
-    assert np.all(split_rhat(stuck) > 1.1)
+        in_mode = (lambda c: lambda x: np.where(np.all(np.sign(x) == np.sign(c), axis=-1),
+                                                _bimodal(x), -np.inf))(centre)
+        stuck.append(run_ensemble(in_mode, p0, rng, n_steps=500).chain[100:])
+    assert np.all(rank_rhat(stuck) > 1.1)
+
+
+def _vehtari_rhat(chains):
+    """Rank-normalised split R-hat written out from Vehtari et al. 2021 (Bayesian Anal.
+    16, 667), eqs. 14-16 and the folded variant of sect. 4.2: split each chain in two,
+    rank all draws together, map ranks r to z = Phi^-1((r - 3/8) / (S + 1/4)) (Blom), take
+    BDA3's R-hat of z, and of the folded draws |x - median|; report the larger."""
+    x = np.asarray(chains, float)
+    n = x.shape[1] // 2
+    halves = np.concatenate([x[:, :n], x[:, x.shape[1] - n:]])
+
+    def rank_z(y):
+        r = stats.rankdata(y, method="average").reshape(y.shape)
+        return stats.norm.ppf((r - 0.375) / (y.size + 0.25))
+
+    bulk = gelman_rubin(rank_z(halves))
+    folded = gelman_rubin(rank_z(np.abs(halves - np.median(halves))))
+    return max(bulk, folded)
+
+
+def test_rank_rhat_matches_the_published_recipe():
+    # Four AR(1) chains, one shifted by a fraction of a sigma: the wiring through arviz
+    # must give the number of the recipe written out independently above.
+    rng = np.random.default_rng(7)
+    x = np.zeros((4, 400))
+    for t in range(1, 400):
+        x[:, t] = 0.6 * x[:, t - 1] + rng.standard_normal(4)
+    x[3] += 0.4
+    got = rank_rhat([c[:, None, None] for c in x])[0]
+    assert got == pytest.approx(_vehtari_rhat(x), rel=1e-10)
+    assert got > 1.01
+
+
+def test_bulk_ess_of_ar1_chains_follows_the_integrated_autocorrelation_time():
+    # AR(1) with coefficient phi: tau = (1 + phi) / (1 - phi) (common practice; e.g.
+    # Sokal 1997 lecture notes on Monte Carlo methods, from memory), so ESS = N / tau.
+    phi, m, n = 0.5, 4, 5000
+    rng = np.random.default_rng(11)
+    x = np.zeros((m, n))
+    x[:, 0] = rng.standard_normal(m) / np.sqrt(1 - phi**2)
+    for t in range(1, n):
+        x[:, t] = phi * x[:, t - 1] + rng.standard_normal(m)
+    bulk, tail = ess_bulk_tail([c[:, None, None] for c in x])
+    assert bulk[0] == pytest.approx(m * n * (1 - phi) / (1 + phi), rel=0.15)
+    assert 0.3 * bulk[0] < tail[0] < 3.0 * bulk[0]  # same order (loose: tails decorrelate faster)
 
 
 # ----------------------------------------------------- analytic marginalising

@@ -262,6 +262,10 @@ def sampling_block(posterior):
         "tau": dict(zip(names, posterior.tau, strict=True)),
         "rhat": dict(zip(names, posterior.rhat, strict=True)),
         "ess": dict(zip(names, posterior.ess, strict=True)),
+        **({"ess_bulk": dict(zip(names, posterior.ess_bulk, strict=True)),
+            "ess_tail": dict(zip(names, posterior.ess_tail, strict=True))}
+           if posterior.ess_bulk is not None else {}),
+        "rhat_method": "rank-normalised split R-hat (arviz; Vehtari et al. 2021)",
         "implied_priors": list(posterior.implied_priors),
         "marginalised": list(posterior.marginalised),
         "seed": posterior.seed, "percentiles": "value: median; lower/upper: 16th/84th "

@@ -42,6 +42,7 @@ from deepwell.results.saved_fit import write_state
 from .analysis_tables import write_extra_tables
 from .figures.enclosed import plot_enclosed_mass
 from .figures.gallery import write_figures
+from .inference_data import INFERENCE_FILE, write_inference_data
 from .outdir import staged_output
 from .robustness import (
     robustness_markdown,
@@ -474,6 +475,7 @@ def write_report(result, folder, analyses, figures=True, extra=None):
         np.savez_compressed(path, internal_samples=flat.reshape(-1, flat.shape[-1]),
                             internal_names=np.array(analyses.posterior.internal_names))
         files.append(path)
+        files.append(write_inference_data(analyses.posterior, folder / INFERENCE_FILE))
     return files
 
 

@@ -14,7 +14,7 @@ checkpoints), :mod:`.convergence` (autocorrelation, R-hat, quantiles),
 """
 
 from .backend import CheckpointError, CheckpointMismatch
-from .convergence import RHAT_MAX, RUN_TAUS, gelman_rubin, split_rhat
+from .convergence import ESS_MIN, RHAT_MAX, RUN_TAUS, gelman_rubin, rank_rhat
 from .ensemble import EnsembleRun, NoProgress, default_moves, run_ensemble
 from .posterior import (
     PosteriorResult,
@@ -28,6 +28,6 @@ from .target import LINEAR_TERMS, LogPosterior, SamplingWarning
 __all__ = [
     "sample_posterior", "SamplerOptions", "PosteriorResult", "Summary", "run_ensemble",
     "EnsembleRun", "NoProgress", "default_moves", "LogPosterior", "LINEAR_TERMS", "SamplingWarning",
-    "CheckpointError", "CheckpointMismatch", "gelman_rubin", "split_rhat", "RHAT_MAX",
+    "CheckpointError", "CheckpointMismatch", "gelman_rubin", "rank_rhat", "RHAT_MAX", "ESS_MIN",
     "RUN_TAUS", "SamplingError",
 ]

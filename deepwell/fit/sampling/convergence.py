@@ -9,20 +9,40 @@ The rule deepwell applies (stated in every result):
    most half the run).
 3. Each ensemble's kept part must be at least ``RUN_TAUS`` = 50 tau long for
    the largest tau.
-4. Split R-hat (Gelman et al. 2013, BDA3, eqs. 11.1-11.4) across at least two
-   independent ensembles (different seeds), each ensemble's kept part split
-   in two halves, must be below ``RHAT_MAX`` for every parameter.
+4. The rank-normalised split R-hat of Vehtari et al. (2021, Bayesian Analysis
+   16, 667), computed by arviz, across at least two independent chains or
+   ensembles (different seeds) must be below ``RHAT_MAX`` for every parameter.
+5. NUTS chains: the bulk and tail effective sample sizes of the same paper
+   (arviz) must reach ``ESS_MIN`` per chain for every parameter; a chain run to
+   the rule keeps going until its own ESS does.
+
+arviz takes about 2 s to import and is needed only once a posterior is
+sampled, so it is imported on first use (:func:`import_arviz`).
 """
+
+import warnings
 
 import numpy as np
 from emcee.autocorr import integrated_time
 
-__all__ = ["RUN_TAUS", "BURN_TAUS", "RHAT_MAX", "autocorr_times", "burn_in", "enough_taus",
-           "gelman_rubin", "split_rhat", "quantile_summary"]
+__all__ = ["RUN_TAUS", "BURN_TAUS", "RHAT_MAX", "ESS_MIN", "autocorr_times", "burn_in",
+           "enough_taus", "enough_ess", "gelman_rubin", "rank_rhat", "ess_bulk_tail",
+           "quantile_summary", "import_arviz"]
 
 RUN_TAUS = 50
 BURN_TAUS = 5
+#: Largest rank-normalised split R-hat accepted (Vehtari et al. 2021 recommend 1.01).
 RHAT_MAX = 1.01
+#: Smallest bulk and tail ESS per chain (Vehtari et al. 2021: 100 per chain; from memory).
+ESS_MIN = 100
+
+
+def import_arviz():
+    """The arviz module, imported on first use (heavy; it announces a refactor on import)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", FutureWarning)
+        import arviz
+    return arviz
 
 
 def autocorr_times(chain, thin=1):
@@ -95,28 +115,63 @@ def gelman_rubin(chains):
         return np.sqrt(var_plus / w)
 
 
-def split_rhat(ensembles):
-    """R-hat across ensembles, each split into its first and second half.
+def _pooled(ensembles):
+    """Chains of equal length, shape (m, n, n_dim): each ensemble's walkers pooled in order."""
+    n = min(e.shape[0] for e in ensembles)
+    return np.stack([e[e.shape[0] - n:].reshape(-1, e.shape[-1]) for e in ensembles])
+
+
+def rank_rhat(ensembles):
+    """Rank-normalised split R-hat (arviz) across independent chains or ensembles.
 
     Parameters
     ----------
     ensembles : sequence of ndarray, each (n_steps, n_walkers, n_dim)
-        Kept samples of independent ensembles; the walkers of one ensemble are
+        Kept samples of independent runs; the walkers of one ensemble are
         pooled into one chain (they are not independent of each other).
 
     Returns
     -------
     ndarray, shape (n_dim,)
+        NaN where it cannot be computed (too few draws, a constant chain).
     """
-    n = min(e.shape[0] for e in ensembles) // 2
-    if n < 2:
-        return np.full(ensembles[0].shape[-1], np.nan)
-    halves = []
-    for e in ensembles:
-        e = e[e.shape[0] - 2 * n:]
-        for part in (e[:n], e[n:]):
-            halves.append(part.reshape(-1, part.shape[-1]))
-    return gelman_rubin(np.stack(halves))
+    x = _pooled(ensembles)
+    if x.shape[1] < 4:
+        return np.full(x.shape[-1], np.nan)
+    az = import_arviz()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.array([float(az.rhat(x[..., d], method="rank")) for d in range(x.shape[-1])])
+
+
+def ess_bulk_tail(chains):
+    """Bulk and tail effective sample sizes (arviz) of NUTS chains, per parameter.
+
+    Parameters
+    ----------
+    chains : sequence of ndarray, each (n_steps, 1, n_dim)
+
+    Returns
+    -------
+    bulk, tail : ndarray, shape (n_dim,)
+        Totals over the chains; NaN where they cannot be computed.
+    """
+    x = _pooled(chains)
+    if x.shape[1] < 4:
+        nan = np.full(x.shape[-1], np.nan)
+        return nan, nan.copy()
+    az = import_arviz()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        bulk = [float(az.ess(x[..., d], method="bulk")) for d in range(x.shape[-1])]
+        tail = [float(az.ess(x[..., d], method="tail")) for d in range(x.shape[-1])]
+    return np.array(bulk), np.array(tail)
+
+
+def enough_ess(chain, thin=1):
+    """Stop rule of one NUTS chain: the tau rule and bulk/tail ESS >= ESS_MIN after burn-in."""
+    if not enough_taus(chain, thin):
+        return False
+    bulk, tail = ess_bulk_tail([chain[burn_in(chain, thin):]])
+    return bool(np.all(bulk >= ESS_MIN) and np.all(tail >= ESS_MIN))
 
 
 def quantile_summary(samples, angle=False):

@@ -19,13 +19,16 @@ from deepwell.fit.result import physical_labels, physical_vector
 from .backend import fingerprint
 from .convergence import (
     BURN_TAUS,
+    ESS_MIN,
     RHAT_MAX,
     RUN_TAUS,
     autocorr_times,
     burn_in,
+    enough_ess,
     enough_taus,
+    ess_bulk_tail,
     quantile_summary,
-    split_rhat,
+    rank_rhat,
 )
 from .coordinates import STATE_ARC, SamplingCoordinates
 from .ensemble import default_moves, run_ensemble
@@ -83,7 +86,7 @@ class PosteriorResult:
         Integrated autocorrelation time per sampled parameter (steps, largest
         over the ensembles).
     rhat : ndarray, shape (n_sampled,)
-        Split R-hat across the independent ensembles.
+        Rank-normalised split R-hat (arviz) across the independent chains.
     n_steps, burn : tuple of int
         Steps run and steps discarded as burn-in, per ensemble.
     thin : int
@@ -104,6 +107,9 @@ class PosteriorResult:
         "ensemble" (emcee ensembles).
     diagnostics : tuple of str
         Sampler-specific facts (step size, divergences, depth limits).
+    ess_bulk, ess_tail : ndarray, shape (n_sampled,)
+        Bulk and tail effective sample sizes (arviz), summed over the chains;
+        NaN for ensembles (their walkers are not independent chains).
     """
 
     labels: tuple
@@ -129,6 +135,8 @@ class PosteriorResult:
     seed: int
     sampler: str = "ensemble"
     diagnostics: tuple = ()
+    ess_bulk: np.ndarray | None = None
+    ess_tail: np.ndarray | None = None
 
     @property
     def flat_samples(self):
@@ -198,7 +206,13 @@ def _unit(label, layout):
 
 
 def _stop_rule(chain, thin):
+    """Ensembles: the autocorrelation-time rule."""
     return enough_taus(chain, thin)
+
+
+def _chain_stop_rule(chain, thin):
+    """NUTS chains: the autocorrelation-time rule and bulk/tail ESS >= ESS_MIN."""
+    return enough_ess(chain, thin)
 
 
 _JOBS = {}
@@ -231,7 +245,8 @@ def _moves(moves):
     return list(moves)
 
 
-def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens, what="ensemble"):
+def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens, what="ensemble",
+               ess=None):
     problems = []
     for k, run in enumerate(runs):
         if getattr(run, "n_divergent", 0):
@@ -268,15 +283,29 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens, what="en
                         f"{names[worst]} (need < {RHAT_MAX}; {bad.size} parameter(s) fail)")
     if n_ens < 2:
         problems.append(f"only one {what}: R-hat across independent {what}s is unavailable")
+    if ess is not None:
+        need = ESS_MIN * n_ens
+        for kind, values in zip(("bulk", "tail"), ess, strict=True):
+            low = np.flatnonzero(~(values >= need))
+            if low.size:
+                worst = low[np.argmin(np.nan_to_num(values[low], nan=-np.inf))]
+                problems.append(f"{kind} ESS is {values[worst]:.0f} for {names[worst]} (need "
+                                f">= {ESS_MIN} per {what}, {need} in all)")
     ok_tau = np.where(np.isfinite(tau), tau, np.inf)
     worst_tau = names[int(np.argmax(ok_tau))]
     rule = (f"rule: at least {RUN_TAUS} autocorrelation times per {what} after discarding "
-            f"{BURN_TAUS} as burn-in, and split R-hat < {RHAT_MAX} across >= 2 {what}s")
+            f"{BURN_TAUS} as burn-in, rank-normalised split R-hat < {RHAT_MAX} (arviz) across "
+            f">= 2 {what}s" + (f", bulk and tail ESS >= {ESS_MIN} per {what}"
+                               if ess is not None else ""))
     tau_text = (f"{np.max(ok_tau):.3g} steps" if np.isfinite(np.max(ok_tau))
                 else "not measurable")
     rhat_max = np.max(np.where(np.isfinite(rhat), rhat, np.inf))
     facts = (f"largest autocorrelation time {tau_text} ({worst_tau}); "
              f"largest R-hat {rhat_max:.4f}")
+    if ess is not None:
+        low = [np.min(np.where(np.isfinite(v), v, -1.0)) for v in ess]
+        low = [f"{x:.0f}" if x >= 0 else "not measurable" for x in low]
+        facts += f"; smallest bulk ESS {low[0]}, smallest tail ESS {low[1]}"
     if problems:
         return False, ("NOT CONVERGED: the uncertainties below may be too small or biased. "
                        + "; ".join(problems) + f". ({rule}; {facts})")
@@ -420,7 +449,8 @@ def sample_posterior(result, options=SamplerOptions(), checkpoint=None, resume=F
         p0 = start_positions(target, result, n_walkers, rng)
         common = dict(
             rng=rng, fingerprint=f"{base_hash}|chain={k}", resume=resume, max_time=max_time,
-            progress=progress, stop_rule=_stop_rule, position=k)
+            progress=progress, stop_rule=_chain_stop_rule if nuts else _stop_rule,
+            position=k)
         if nuts:
             ck = None if checkpoint is None else Path(checkpoint) / f"chain_{k}.h5"
             jobs.append((run_chain, dict(
@@ -497,10 +527,11 @@ def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed,
     kept = [r.chain[b:] for r, b in zip(runs, burns, strict=False)]
     taus = np.array([autocorr_times(c, thin) for c in kept])
     tau = np.max(taus, axis=0)  # nan/inf (unmeasurable) propagate: conservative
-    rhat = split_rhat(kept) if len(runs) > 1 else np.full(len(target.names), np.nan)
+    rhat = rank_rhat(kept) if len(runs) > 1 else np.full(len(target.names), np.nan)
+    ess = ess_bulk_tail(kept) if sampler == "nuts" else None
     converged, text = _statement(runs, [b * thin for b in burns], tau, rhat, target.names,
                                  n_steps, max_time, len(runs),
-                                 "chain" if sampler == "nuts" else "ensemble")
+                                 "chain" if sampler == "nuts" else "ensemble", ess)
     if not converged:
         warnings.warn(SamplingWarning(text), stacklevel=3)
     n = min(c.shape[0] for c in kept)
@@ -522,4 +553,5 @@ def _assemble(result, target, runs, seed, n_steps, max_time, max_draws, elapsed,
         statement=text, implied_priors=target.implied_priors(),
         marginalised=tuple(lay.names()[i] for i in target.marginal),
         stop_reasons=tuple(r.stop_reason for r in runs), elapsed=elapsed, seed=seed,
-        sampler=sampler, diagnostics=_diagnostics(runs) + tuple(notes))
+        sampler=sampler, diagnostics=_diagnostics(runs) + tuple(notes),
+        ess_bulk=None if ess is None else ess[0], ess_tail=None if ess is None else ess[1])
