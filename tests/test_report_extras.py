@@ -338,3 +338,20 @@ def test_asymmetric_errors_round_to_the_smaller_error(value, minus, plus, style,
     # hand-worked: two significant digits of the smaller error (common practice)
     assert format_asymmetric(value, minus, plus, style) == expected
     assert math.isfinite(value)
+
+
+def test_star_tables_say_which_elements_are_osculating_and_give_the_observed_pericentre(
+        rel_fit, rel_sizes, rel_report):
+    # A reader copying t_peri into a paper must see that integrated stars' elements are
+    # osculating at apocentre (common practice for 1PN fits) and find the observed epoch.
+    t = Table.read(rel_report / "tables" / "stars.ecsv", format="ascii.ecsv")
+    integrated = [s for s, i in zip(rel_fit.stars, rel_fit.model.integrated, strict=True) if i]
+    assert integrated and [s for s, i in zip(t["star"], t["integrated"], strict=True) if i] \
+        == integrated
+    assert OSCULATING_STATEMENT in t.meta["elements"]
+    for row in t:
+        assert row["t_peri_observed"] == pytest.approx(
+            rel_sizes[row["star"]]["pericentre_observed"], abs=1e-9)
+    tex = (rel_report / "tables" / "stars.tex").read_text()
+    assert "osculating Keplerian elements at the apocentre epoch" in tex
+    assert all(f"{s}$^\\dagger$" in tex for s in integrated)

@@ -383,3 +383,23 @@ def test_a_time_budget_that_ends_in_the_warm_up_is_a_clear_error():
                                              n_chains=2))
     assert isinstance(info.value, DeepwellError)
     assert "--max-time" in str(info.value)
+
+
+def test_a_sampling_run_that_gets_no_posterior_still_writes_the_least_squares_report(
+        tmp_path, capsys):
+    # A run whose --max-time ends in the warm-up: exit 0, the least-squares report is
+    # written and says plainly, at its top and in summary.json, that there is no posterior.
+    from deepwell.cli import main
+
+    out = tmp_path / "report"
+    code = main(["fit", str(SCENARIOS / "sparse"), "--out", str(out), "--newtonian",
+                 "--sample", "--max-time", "0.01", "--chains", "2", "--no-figures", "-q"])
+    err = capsys.readouterr().err
+    assert code == 0 and "NOT CONVERGED: no posterior" in err and "Traceback" not in err
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["sampling"]["converged"] is False and summary["sampling"]["posterior"] is None
+    assert summary["sampling"]["statement"].startswith("NOT CONVERGED: no posterior")
+    assert "least_squares" not in summary and summary["parameters"]["mass"]["sigma"] > 0
+    first = (out / "report.md").read_text().splitlines()[0]
+    assert first.startswith("**WARNING") and "produced no posterior" in first
+    assert not (out / "posterior.nc").exists()

@@ -15,15 +15,13 @@ from deepwell.results.compactness import compactness_from_samples
 from deepwell.results.effect_sizes import DETECTABLE_RULE
 
 from .analysis_tables import posterior_summary
-from .tables import format_asymmetric, format_value_error
+from .tables import OSCULATING_STATEMENT, format_asymmetric, format_value_error
 
 __all__ = ["OSCULATING_STATEMENT", "effects_block", "md_effects",
            "extended_block", "md_extended", "enclosed_block", "md_enclosed",
            "posterior_parameters", "sampling_block", "posterior_compactness", "md_posterior",
            "not_converged_banner"]
 
-OSCULATING_STATEMENT = ("for integrated stars the elements are osculating Keplerian elements "
-                        "at each star's apocentre epoch t_peri + P/2")
 
 
 # ------------------------------------------------------------------ effects

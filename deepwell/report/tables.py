@@ -18,7 +18,8 @@ from deepwell.core.units import UNITS
 from deepwell.core.version import __version__
 
 __all__ = ["format_value_error", "format_asymmetric", "star_numbers", "shared_table",
-           "stars_table", "latex_shared", "latex_stars", "write_tables", "STAR_COLUMNS"]
+           "stars_table", "latex_shared", "latex_stars", "write_tables", "STAR_COLUMNS",
+           "OSCULATING_STATEMENT"]
 
 #: Per-star columns with an error, in table order: (name, unit, LaTeX symbol).
 STAR_COLUMNS = (
@@ -163,12 +164,24 @@ def shared_table(result):
     return t
 
 
-def stars_table(result, numbers=None):
-    """Astropy Table, one row per star: elements ± errors and derived numbers."""
+OSCULATING_STATEMENT = ("for integrated stars the elements are osculating Keplerian elements "
+                        "at each star's apocentre epoch t_peri + P/2")
+#: Marker of integrated (osculating-element) stars in the LaTeX table.
+OSCULATING_MARK = r"$^\dagger$"
+
+
+def stars_table(result, numbers=None, sizes=None):
+    """Astropy Table, one row per star: elements ± errors and derived numbers.
+
+    ``sizes`` (effect sizes per star, :func:`deepwell.results.effect_sizes.star_effect_sizes`)
+    adds ``t_peri_observed``, the epoch of the observed pericentre passage; the
+    ``integrated`` column and the metadata say whose elements are osculating.
+    """
     numbers = numbers or {s: star_numbers(result, s) for s in result.stars}
     stars = list(result.stars)
     t = Table()
     t["star"] = stars
+    t["integrated"] = [bool(i) for i in result.model.integrated]
     for q, unit, _ in STAR_COLUMNS:
         t[q] = [result.value(f"{s}:{q}") for s in stars] * u.Unit(unit)
         t[f"{q}_err"] = [result.sigma(f"{s}:{q}") for s in stars] * u.Unit(unit)
@@ -181,6 +194,14 @@ def stars_table(result, numbers=None):
     t["n_positions"] = col("n_positions")
     t["n_velocities"] = col("n_velocities")
     t["reduced_chi2"] = col("reduced_chi2")
+    if sizes is not None:
+        t["t_peri_observed"] = [float(sizes[s]["pericentre_observed"]) for s in stars] * u.yr
+        t["t_peri_observed"].description = (
+            "epoch of the observed (light-travel-delayed) pericentre passage nearest t_peri")
+    t["integrated"].description = ("orbit integrated (1PN/extended mass): its elements are "
+                                   "osculating at the apocentre epoch t_peri + P/2")
+    t["t_peri"].description = ("epoch of pericentre of the (osculating, where integrated) "
+                               "Keplerian ellipse")
     descr = {"r_peri_rs": "pericentre distance in Schwarzschild radii of the mass",
              "v_peri": "speed at pericentre (vis-viva)",
              "coverage": "fraction of the orbit (in mean anomaly) spanned by position epochs",
@@ -188,6 +209,9 @@ def stars_table(result, numbers=None):
     for name, text in descr.items():
         t[name].description = text
     t.meta.update(_meta(result, "Per-star orbital elements and derived numbers"))
+    if result.model.integrated.any():
+        t.meta["elements"] = (OSCULATING_STATEMENT + " (stars with integrated = True); their "
+                              "t_peri is not the observed pericentre epoch (t_peri_observed)")
     return t
 
 
@@ -256,7 +280,8 @@ def latex_stars(result, numbers=None):
     rows = []
     for s in result.stars:
         n = numbers[s]
-        cells = [_tex_escape(s)]
+        k = result.stars.index(s)
+        cells = [_tex_escape(s) + (OSCULATING_MARK if result.model.integrated[k] else "")]
         cells += [_pm(result.value(f"{s}:{q}"), result.sigma(f"{s}:{q}"))
                   for q, _, _ in STAR_COLUMNS]
         cells += [_pm(n["r_peri_rs"], n["r_peri_rs_err"]),
@@ -273,22 +298,29 @@ def latex_stars(result, numbers=None):
         r"Cov.: fraction of the orbit covered by position epochs; $N_\mathrm{pos}$, $N_v$: "
         r"numbers of position and radial-velocity epochs. Uncertainties are $1\sigma$ from the "
         r"stated data errors, not rescaled by the reduced $\chi^2$; angles in degrees, "
-        r"$\Omega$ and $\omega$ in $[0, 360)$.}",
+        r"$\Omega$ and $\omega$ in $[0, 360)$."
+        + (r" $^\dagger$: orbit integrated with the 1PN equation of motion; its elements are "
+           r"osculating Keplerian elements at the apocentre epoch $t_\mathrm{p} + P/2$, so "
+           r"$t_\mathrm{p}$ is not the epoch of the observed pericentre passage."
+           if result.model.integrated.any() else "") + "}",
         r"\label{tab:deepwell-stars}",
         r"\begin{tabular}{l" + "c" * (ncol - 1) + "}", r"\toprule",
         " & ".join(head) + r" \\", " & ".join(units) + r" \\", r"\midrule", *rows,
         r"\bottomrule", r"\end{tabular}", r"\end{table*}", ""])
 
 
-def write_tables(result, folder, numbers=None):
-    """Write shared.ecsv/.tex and stars.ecsv/.tex into ``folder``; return the paths."""
+def write_tables(result, folder, numbers=None, sizes=None):
+    """Write shared.ecsv/.tex and stars.ecsv/.tex into ``folder``; return the paths.
+
+    ``sizes``: effect sizes per star, for the observed pericentre epochs.
+    """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     numbers = numbers or {s: star_numbers(result, s) for s in result.stars}
     paths = [folder / n for n in ("shared.ecsv", "shared.tex", "stars.ecsv", "stars.tex")]
     shared_table(result).write(paths[0], format="ascii.ecsv", overwrite=True)
     paths[1].write_text(latex_shared(result), encoding="utf-8")
-    stars_table(result, numbers).write(paths[2], format="ascii.ecsv", overwrite=True)
+    stars_table(result, numbers, sizes).write(paths[2], format="ascii.ecsv", overwrite=True)
     paths[3].write_text(latex_stars(result, numbers), encoding="utf-8")
     return paths
 

@@ -155,7 +155,7 @@ def _q(result, label):
 
 
 def summary_dict(result, extra=None, posterior=None, profile=None, extended_limits=None,
-                 effect_sizes=None):
+                 effect_sizes=None, sampling_failed=None):
     """The content of summary.json (see the module docstring of deepwell.report).
 
     Parameters
@@ -173,6 +173,8 @@ def summary_dict(result, extra=None, posterior=None, profile=None, extended_limi
     effect_sizes : dict, optional
         From :func:`deepwell.results.effect_sizes.star_effect_sizes`; adds "effects" and,
         per star, "effect_sizes", "integrated_period" and "pericentre_observed".
+    sampling_failed : str, optional
+        Why a requested sampling gave no posterior; adds a "sampling" entry saying so.
     """
     shared = result.model.layout.shared_names
     params = {}
@@ -216,6 +218,9 @@ def summary_dict(result, extra=None, posterior=None, profile=None, extended_limi
         out["enclosed_mass"] = enclosed_block(profile)
     if extended_limits:
         out["extended_mass"] = extended_block(extended_limits)
+    if sampling_failed is not None:
+        out["sampling"] = {"converged": False, "posterior": None,
+                           "statement": f"NOT CONVERGED: no posterior: {sampling_failed}"}
     if posterior is not None:
         p_params, p_stars = posterior_parameters(result, posterior, SUMMARY_STAR_ORDER)
         out["least_squares"] = {"parameters": params,
@@ -313,7 +318,8 @@ def _md_star_tables(result, numbers):
 
 
 def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
-                    extended_limits=None, effect_sizes=None, robustness=""):
+                    extended_limits=None, effect_sizes=None, robustness="",
+                    sampling_failed=None):
     """Text of report.md.
 
     Parameters
@@ -333,6 +339,10 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
     rho, alpha = result.mass_distance_correlation, result.mass_distance_exponent
     n_vel = result.model.vel.n if result.model.vel is not None else 0
     banner = not_converged_banner(posterior)
+    if sampling_failed is not None:
+        banner = ("**WARNING: the posterior sampling was asked for but produced no posterior "
+                  f"({sampling_failed}). Every number in this report is from the least-squares "
+                  "fit; its errors are a linear approximation.**")
     kind = "relativistic" if result.model.effects.any_on else "Keplerian"
     out = [
         *([banner, ""] if banner else []),
@@ -388,6 +398,11 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
         out += md_extended(extended_limits)
     if profile is not None:
         out += md_enclosed(profile, figures)
+    if sampling_failed is not None:
+        out += ["## Posterior", "", f"NOT CONVERGED: no posterior was obtained: {sampling_failed}. "
+                "The numbers above are the least-squares fit. The chains' checkpoints are kept "
+                "beside the report folder; continue them with `--resume` (and a larger "
+                "`--max-time`).", ""]
     if posterior is not None:
         choice = compactness_choice(result)
         out += md_posterior(result, posterior,
@@ -450,7 +465,7 @@ def write_report(result, folder, analyses, figures=True, extra=None):
     extra = {**(extra or {}), **robustness_summary(analyses)}
     write_summary(result, folder / "summary.json", extra, **kw)
     files = [folder / "summary.json"]
-    files += write_tables(result, folder / "tables")
+    files += write_tables(result, folder / "tables", sizes=analyses.effect_sizes)
     files += write_robustness_tables(analyses, folder / "tables")
     files += write_extra_tables(result, folder / "tables", sizes=analyses.effect_sizes,
                                 limits=analyses.extended_limits, posterior=analyses.posterior,

@@ -39,6 +39,9 @@ class Analyses:
         Leave-one-out refits, when asked for.
     posterior : deepwell.fit.sampling.PosteriorResult or None
         Posterior sample of the fit, when sampled.
+    sampling_failed : str or None
+        Why a requested posterior sampling produced nothing (the report then
+        rests on the least-squares fit and says so).
     """
 
     effect_sizes: dict
@@ -48,15 +51,17 @@ class Analyses:
     extended_limits: list | None = None
     jackknife: tuple = ()
     posterior: object = None
+    sampling_failed: str | None = None
 
     def report_kwargs(self):
         """The analyses as the keyword arguments of the summary and markdown writers."""
         return {"posterior": self.posterior, "profile": self.profile,
-                "extended_limits": self.extended_limits, "effect_sizes": self.effect_sizes}
+                "extended_limits": self.extended_limits, "effect_sizes": self.effect_sizes,
+                "sampling_failed": self.sampling_failed}
 
 
 def analyse(result, extended_mass=(), external=None, jackknife=(), posterior=None,
-            progress=None):
+            progress=None, sampling_failed=None):
     """Run the analyses of a finished fit.
 
     Parameters
@@ -70,6 +75,8 @@ def analyse(result, extended_mass=(), external=None, jackknife=(), posterior=Non
         Leave one star / data set out at a time (one fit each).
     posterior : deepwell.fit.sampling.PosteriorResult, optional
         A posterior sample of ``result``, carried to the report.
+    sampling_failed : str, optional
+        Why a requested sampling produced no posterior.
     progress : callable, optional
         Called with a short text before each slow step.
 
@@ -91,4 +98,4 @@ def analyse(result, extended_mass=(), external=None, jackknife=(), posterior=Non
         jk.append(run_jackknife(result.observations, result.settings, by=by, result=result))
     return Analyses(effect_sizes=sizes, profile=profile, datasets=dataset_summary(result),
                     outliers=outlier_table(result), extended_limits=limits,
-                    jackknife=tuple(jk), posterior=posterior)
+                    jackknife=tuple(jk), posterior=posterior, sampling_failed=sampling_failed)

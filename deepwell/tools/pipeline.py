@@ -6,10 +6,12 @@ replaces ``out`` only when everything is written (a failed run leaves an
 existing folder untouched).
 """
 
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
 from deepwell.fit import fit_joint, sample_posterior
+from deepwell.fit.sampling import SamplingError, SamplingWarning
 from deepwell.report import discard_output, install_output, prepare_output, write_report
 from deepwell.results import analyse
 from deepwell.tables import read_external_constraints, read_observations
@@ -68,7 +70,8 @@ def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=No
     settings : deepwell.tables.Settings
     job : FitJob
     replace : bool
-        Replace an earlier deepwell report in ``out`` (foreign files are kept).
+        Replace an earlier deepwell report in ``out`` (foreign files are kept);
+        implied by ``job.resume`` (a resumed run updates its own report).
     progress : callable, optional
         Called with a short text at each phase.
 
@@ -78,20 +81,28 @@ def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=No
     analyses : deepwell.results.Analyses
     """
     say = progress or (lambda text: None)
+    replace = replace or job.resume
     obs = read_observations(scenario, min_epochs=settings.min_epochs, strict=job.strict)
     external = read_external_constraints(job.external) if job.external else None
     tmp = prepare_output(out, replace=replace)
     try:
         result = fit_joint(obs, settings, progress=say)
-        posterior = None
+        posterior, failed = None, None
         if job.sampling is not None:
             chains = chains_folder(out)
             say(f"sampling the posterior (checkpoints in {chains}; resume with --resume)")
-            posterior = sample_posterior(result, job.sampling, checkpoint=chains,
-                                         resume=job.resume)
-            say(posterior.statement)
+            try:
+                posterior = sample_posterior(result, job.sampling, checkpoint=chains,
+                                             resume=job.resume)
+                say(posterior.statement)
+            except SamplingError as exc:  # the least-squares report is still written
+                failed = str(exc)
+                warnings.warn(SamplingWarning(f"NOT CONVERGED: no posterior: {failed}; the "
+                                              "report gives the least-squares fit"),
+                              stacklevel=2)
         analyses = analyse(result, extended_mass=job.extended_mass, external=external,
-                           jackknife=job.jackknife, posterior=posterior, progress=say)
+                           jackknife=job.jackknife, posterior=posterior, progress=say,
+                           sampling_failed=failed)
         say("writing the report")
         write_report(result, tmp, analyses, figures=job.figures, extra=job.extra)
         install_output(tmp, out, replace=replace)
