@@ -193,3 +193,23 @@ def test_extended_mass_limits_reach_the_report(scenario, tmp_path):
     lim = limits[0]
     up95, up997 = lim["upper_95"]["value"], lim["upper_997"]["value"]
     assert 0 < up95 < up997
+
+
+@pytest.mark.parametrize("options, option", [
+    (["--max-time", "100"], "--max-time"),        # a sampling option without --sample
+    (["--steps", "500"], "--steps"),
+    (["--extended-mass", "-5"], "--extended-mass"),  # radii must be positive
+    (["--reference-radius", "0"], "--reference-radius"),
+    (["--sample", "--chains", "0"], "--chains"),
+])
+def test_options_that_cannot_be_used_are_refused_before_the_fit(scenario, tmp_path, capsys,
+                                                                 options, option):
+    # Common practice: a mistake in an option costs no fit; the line names the option
+    # (not a "column") and nothing is written.
+    out = tmp_path / "out"
+    assert main(["fit", str(scenario), "--out", str(out)] + options) == 2
+    err = capsys.readouterr().err
+    line = [x for x in err.splitlines() if "error:" in x]
+    assert len(line) == 1 and f"option {option}:" in line[0] and "column" not in line[0]
+    assert "searching starting orbits" not in err and "Traceback" not in err
+    assert not out.exists()

@@ -1,9 +1,11 @@
 """``deepwell fit``: fit all stars around one central mass and write a report folder."""
 
 import logging
+import math
 import time
 from pathlib import Path
 
+from deepwell.core.errors import OptionError
 from deepwell.fit.sampling import SamplerOptions
 from deepwell.tables import Settings, datasets_from_args, effects_from_args, load_settings
 from deepwell.tools.pipeline import FitJob, fit_report
@@ -86,8 +88,41 @@ def add_fit_parser(sub):
     return p
 
 
+def check_options(args):
+    """Refuse options that cannot be used as given, before any data are read.
+
+    Raises
+    ------
+    OptionError
+        Naming the option: sampling options without ``--sample``, radii, times
+        and counts that are not positive.
+    """
+    if not args.sample:
+        for option, value in (("--steps", args.steps), ("--warmup", args.warmup),
+                              ("--chains", args.chains), ("--walkers", args.walkers),
+                              ("--max-time", args.max_time), ("--resume", args.resume or None),
+                              ("--seed", None if args.seed == 0 else args.seed),
+                              ("--sampler", None if args.sampler == "nuts" else args.sampler)):
+            if value is not None:
+                raise OptionError(option, "applies to posterior sampling only: add --sample "
+                                          "(or leave the option out)")
+    for b in args.extended_mass or ():
+        if not (b > 0 and math.isfinite(b)):
+            raise OptionError("--extended-mass", f"scale radii must be positive (au), got {b:g}")
+    positive = (("--reference-radius", args.reference_radius, "au"),
+                ("--max-time", args.max_time, "s"))
+    for option, value, unit in positive:
+        if value is not None and not (value > 0 and math.isfinite(value)):
+            raise OptionError(option, f"must be positive ({unit}), got {value:g}")
+    for option, value, least in (("--steps", args.steps, 1), ("--warmup", args.warmup, 0),
+                                 ("--chains", args.chains, 1), ("--walkers", args.walkers, 2)):
+        if value is not None and value < least:
+            raise OptionError(option, f"must be at least {least}, got {value}")
+
+
 def run_fit(args):
     """Run ``deepwell fit``: settings from the file and the options, then one library call."""
+    check_options(args)
     t0 = time.perf_counter()
     settings = load_settings(args.settings) if args.settings else Settings()
     settings = _dataset_settings(_effect_settings(settings, args), args)

@@ -5,7 +5,7 @@ line (file, row, column, what is wrong); the command line prints that line
 and exits with status 2 instead of showing a traceback.
 """
 
-__all__ = ["DeepwellError", "InputError", "SettingsError", "OutputError"]
+__all__ = ["DeepwellError", "InputError", "SettingsError", "OutputError", "OptionError"]
 
 
 class DeepwellError(Exception):
@@ -52,3 +52,19 @@ class SettingsError(InputError):
 
 class OutputError(DeepwellError):
     """The report folder cannot be written safely (e.g. it holds foreign files)."""
+
+
+class OptionError(DeepwellError, ValueError):
+    """A command-line option that cannot be used as given.
+
+    Parameters
+    ----------
+    option : str
+        The option as typed, e.g. ``"--max-time"``.
+    message : str
+        What is wrong.
+    """
+
+    def __init__(self, option, message):
+        self.option, self.message = option, message
+        super().__init__(f"option {option}: {message}")
