@@ -403,3 +403,50 @@ def test_a_sampling_run_that_gets_no_posterior_still_writes_the_least_squares_re
     first = (out / "report.md").read_text().splitlines()[0]
     assert first.startswith("**WARNING") and "produced no posterior" in first
     assert not (out / "posterior.nc").exists()
+
+
+def _children(pid):
+    """PIDs of the live child processes of ``pid`` (Linux /proc)."""
+    out = []
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[1]) == pid and fields[0] != "Z":
+            out.append(int(stat.parent.name))
+    return out
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="needs Linux /proc")
+def test_sigterm_stops_the_chain_workers_with_the_parent(tmp_path):
+    # Common practice for a command-line program: SIGTERM ends the run and every
+    # process it started, and says so in one line (exit 128 + 15).
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    code = ("import sys; from deepwell.cli import main; sys.exit(main(sys.argv[1:]))")
+    proc = subprocess.Popen(
+        [sys.executable, "-c", code, "fit", str(SCENARIOS / "sparse"), "--out",
+         str(tmp_path / "rep"), "--newtonian", "--sample", "--chains", "2", "--no-figures",
+         "-q"], stderr=subprocess.PIPE, text=True, env={**os.environ, "PYTHONWARNINGS": "ignore"})
+    deadline = time.monotonic() + 240
+    kids = []
+    while time.monotonic() < deadline and proc.poll() is None:
+        kids = _children(proc.pid)
+        if len(kids) >= 2:
+            break
+        time.sleep(0.2)
+    assert len(kids) >= 2, "the chain workers never started"
+    time.sleep(1.0)
+    proc.send_signal(signal.SIGTERM)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 143 and "terminated" in err and "Traceback" not in err
+    time.sleep(0.5)
+    assert [k for k in kids if Path(f"/proc/{k}").exists()
+            and "Z" not in Path(f"/proc/{k}/stat").read_text().rsplit(")", 1)[1].split()[0]] \
+        == []
+    assert not (tmp_path / "rep").exists()

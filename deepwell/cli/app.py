@@ -8,7 +8,9 @@ exit status 2 (never a traceback).
 import argparse
 import logging
 import os
+import signal
 import sys
+import threading
 import warnings
 
 from threadpoolctl import threadpool_limits
@@ -42,6 +44,14 @@ def _parser():
     return parser
 
 
+class Terminated(BaseException):
+    """SIGTERM, raised where the program is so that every cleanup runs."""
+
+
+def _terminated(signum, frame):
+    raise Terminated()
+
+
 def main(argv=None):
     """Entry point of the ``deepwell`` command; returns the exit status."""
     # One BLAS thread: the matrices are small and the cores are better used by
@@ -59,6 +69,8 @@ def main(argv=None):
     shown = warnings.formatwarning
     warnings.formatwarning = lambda message, category, *rest, **kw: \
         f"{category.__name__}: {message}"  # one line, no source line
+    main_thread = threading.current_thread() is threading.main_thread()
+    previous = signal.signal(signal.SIGTERM, _terminated) if main_thread else None
     try:
         with warnings.catch_warnings(), threadpool_limits(limits=1, user_api="blas"):
             warnings.simplefilter("default")
@@ -66,10 +78,15 @@ def main(argv=None):
     except DeepwellError as exc:
         print(f"deepwell: error: {exc}", file=sys.stderr)
         return 2
+    except Terminated:
+        print("deepwell: terminated; nothing was written", file=sys.stderr)
+        return 143
     except KeyboardInterrupt:
         print("deepwell: interrupted; nothing was written", file=sys.stderr)
         return 130
     finally:
+        if main_thread:
+            signal.signal(signal.SIGTERM, previous)
         logging.captureWarnings(False)
         warnings.formatwarning = shown
 

@@ -2,9 +2,9 @@
 
 import multiprocessing
 import os
+import signal
 import time
 import warnings
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -223,17 +223,33 @@ def _run_job(k):
     return fn(**job)
 
 
+def _worker_signals():
+    """Chain workers take SIGTERM and SIGINT as plain signals (the parent handles the user)."""
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
 def _run_all(jobs, processes):
-    """Run ``(function, kwargs)`` jobs, in forked processes when ``processes`` > 1."""
+    """Run ``(function, kwargs)`` jobs, in forked processes when ``processes`` > 1.
+
+    If the parent is interrupted (Ctrl-C, or SIGTERM turned into an exception by
+    the command line), the workers are terminated with it, never left running.
+    """
     if processes <= 1 or len(jobs) == 1:
         return [fn(**job) for fn, job in jobs]
     _JOBS.clear()
     _JOBS.update(enumerate(jobs))
     ctx = multiprocessing.get_context("fork")
+    pool = ctx.Pool(processes, initializer=_worker_signals)
     try:
-        with ProcessPoolExecutor(max_workers=processes, mp_context=ctx) as pool:
-            return list(pool.map(_run_job, range(len(jobs))))
+        out = pool.map(_run_job, range(len(jobs)), chunksize=1)
+        pool.close()
+        return out
+    except BaseException:
+        pool.terminate()
+        raise
     finally:
+        pool.join()
         _JOBS.clear()
 
 
