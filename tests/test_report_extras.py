@@ -355,3 +355,21 @@ def test_star_tables_say_which_elements_are_osculating_and_give_the_observed_per
     tex = (rel_report / "tables" / "stars.tex").read_text()
     assert "osculating Keplerian elements at the apocentre epoch" in tex
     assert all(f"{s}$^\\dagger$" in tex for s in integrated)
+
+
+def test_effect_figure_titles_say_held_or_fitted(obs, rel_fit, rel_sizes):
+    # A title must never call a held parameter "fitted" (issue of over-claiming labels);
+    # a fitted strength is quoted with its error and its own model curve is drawn.
+    jobs = effect_figure_jobs(rel_fit, rel_sizes)
+    assert jobs
+    for _, build, _ in jobs:
+        title = build()._suptitle.get_text()
+        assert "fitted" not in title and "held at 1" in title
+    free_fit = fit_joint(obs, effects_from_args(Settings(), fit_f=True))
+    stem, build, _ = next(j for j in effect_figure_jobs(free_fit, star_effect_sizes(free_fit))
+                          if j[0].startswith("redshift"))
+    fig = build()
+    f, s = free_fit.value("f"), free_fit.sigma("f")
+    assert s > 0 and f"fitted f = {f:.3g} ± {s:.2g}" in fig._suptitle.get_text()
+    labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    assert f"model, fitted f = {f:.3g}" in labels

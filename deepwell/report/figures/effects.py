@@ -66,8 +66,10 @@ def redshift_curves(result, star, sizes=None, half_width=None, n=801):
         ``t`` (yr), ``t_peri`` (observed pericentre epoch shown), ``f1`` and
         ``f0`` (full model with f = 1 and f = 0 minus the Newtonian orbit,
         km/s), ``t_data``, ``resid_data``, ``err_data``, ``dataset`` (velocity
-        data in the window minus the Newtonian orbit at their epochs) and
-        ``f_fit`` (the fitted or fixed f).
+        data in the window minus the Newtonian orbit at their epochs),
+        ``f_fit`` (the fitted or fixed f), ``f_free`` (whether f was fitted),
+        ``f_sigma`` (its error, 0 when held) and ``ffit`` (the model at the
+        fitted f minus the Newtonian orbit; None when f is held).
     """
     m, vec = result.model, result.internal
     k = m.stars.index(star)
@@ -88,6 +90,8 @@ def redshift_curves(result, star, sizes=None, half_width=None, n=801):
     v_newt = newt.predict(star_vector(m, vec, star, newtonian=True)).vr
     v1 = full.predict(star_vector(m, with_shared(m, vec, "f", 1.0), star)).vr
     v0 = full.predict(star_vector(m, with_shared(m, vec, "f", 0.0), star)).vr
+    free, f_fit, f_sig = _strength(result, "f")
+    v_fit = full.predict(star_vector(m, vec, star)).vr if free else None
     nt = t.size
     return {
         "t": t, "t_peri": t_p, "f1": (v1 - v_newt)[:nt], "f0": (v0 - v_newt)[:nt],
@@ -95,7 +99,8 @@ def redshift_curves(result, star, sizes=None, half_width=None, n=801):
         "resid_data": (m.vel.vr[win] - v_newt[nt:]) if win.any() else np.zeros(0),
         "err_data": m.vel.vr_err[win] if win.any() else np.zeros(0),
         "dataset": m.vel.dataset[win] if win.any() else np.zeros(0, str),
-        "f_fit": float(m.layout.shared(vec, "f")),
+        "f_fit": f_fit, "f_free": free, "f_sigma": f_sig,
+        "ffit": None if v_fit is None else (v_fit - v_newt)[:nt],
     }
 
 
@@ -109,7 +114,8 @@ def precession_curves(result, star, n=1500):
         north offsets in mas of the full model with f_sp = 1 and f_sp = 0 from
         the Newtonian orbit), ``t_data``, ``resid_data`` (shape (2, m), data
         minus the Newtonian orbit including the fitted frame), ``err_data``
-        (shape (2, m)), ``dataset`` and ``f_sp_fit``.
+        (shape (2, m)), ``dataset``, ``f_sp_fit``, ``f_sp_free``, ``f_sp_sigma``
+        and ``spfit`` (the model at the fitted f_sp; None when f_sp is held).
     """
     m, vec = result.model, result.internal
     k = m.stars.index(star)
@@ -123,6 +129,8 @@ def precession_curves(result, star, n=1500):
     pn = newt.predict(star_vector(m, vec, star, newtonian=True))
     p1 = full.predict(star_vector(m, with_shared(m, vec, "f_sp", 1.0), star))
     p0 = full.predict(star_vector(m, with_shared(m, vec, "f_sp", 0.0), star))
+    free, f_fit, f_sig = _strength(result, "f_sp")
+    pf = full.predict(star_vector(m, vec, star)) if free else None
     fx, fy = _frame(m, vec, t_obs, m.pos.frame[sel])
     model_ra = pn.ra[n:] + fx
     model_dec = pn.dec[n:] + fy
@@ -134,8 +142,23 @@ def precession_curves(result, star, n=1500):
         "resid_data": np.stack([m.pos.ra[sel] - model_ra, m.pos.dec[sel] - model_dec]),
         "err_data": np.stack([m.pos.ra_err[sel], m.pos.dec_err[sel]]),
         "dataset": m.pos.dataset[sel],
-        "f_sp_fit": float(m.layout.shared(vec, "f_sp")),
+        "f_sp_fit": f_fit, "f_sp_free": free, "f_sp_sigma": f_sig,
+        "spfit": None if pf is None else np.stack([(pf.ra - pn.ra)[:n], (pf.dec - pn.dec)[:n]]),
     }
+
+
+def _strength(result, name):
+    """(fitted?, value, 1-sigma) of an effect strength f or f_sp."""
+    i = result.model.layout.shared_names.index(name)
+    free = bool(result.free[i])
+    return free, float(result.internal[i]), float(result.sigma(name)) if free else 0.0
+
+
+def _strength_text(symbol, free, value, sigma):
+    """Title words: "fitted f = 1.02 ± 0.05" or "f held at 1" (never "fitted" when held)."""
+    if free:
+        return f"fitted {symbol} = {value:.3g} ± {sigma:.2g}"
+    return f"{symbol} held at {value:.3g}"
 
 
 # ------------------------------------------------------------------ drawing
@@ -156,14 +179,19 @@ def redshift_figure(star, d):
         ax.plot(d["t"], d["f1"], color=STRENGTH_ONE, lw=1.2, label="model, f = 1 (relativity)")
         ax.plot(d["t"], d["f0"], color=STRENGTH_ZERO, lw=1.2, ls="--",
                 label="model, f = 0 (no redshift)")
-        ax.axvline(d["t_peri"], color=MODEL_COLOUR, lw=0.6, ls=":", label="pericentre (observed)")
+        if d.get("ffit") is not None:
+            ax.plot(d["t"], d["ffit"], color=MODEL_COLOUR, lw=1.0, ls="-.",
+                    label=f"model, fitted f = {d['f_fit']:.3g}")
+        ax.axvline(d["t_peri"], color=MODEL_COLOUR, lw=0.6, ls=":",
+                   label="pericentre passage as seen (light-travel delayed)")
         if d["t_data"].size:
             _data(ax, d["t_data"], d["resid_data"], d["err_data"], d["dataset"], offset=2)
         ax.set_xlabel("epoch (Julian yr)")
         ax.set_ylabel(r"$v_r - v_{r,\mathrm{Newton}}$ (km/s)")
         ax.set_xlim(d["t"][0], d["t"][-1])
         ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0)
-        fig.suptitle(f"Star {star}: redshift at pericentre (fitted f = {d['f_fit']:.3g})",
+        words = _strength_text("f", d.get("f_free", False), d["f_fit"], d.get("f_sigma", 0.0))
+        fig.suptitle(f"Star {star}: redshift at pericentre ({words})",
                      fontsize=10, fontweight="bold")
     return fig
 
@@ -180,14 +208,19 @@ def precession_figure(star, d):
                     label=r"model, $f_\mathrm{SP}$ = 1 (relativity)")
             ax.plot(d["t"], d["sp0"][j], color=STRENGTH_ZERO, lw=1.2, ls="--",
                     label=r"model, $f_\mathrm{SP}$ = 0 (no precession)")
+            if d.get("spfit") is not None:
+                ax.plot(d["t"], d["spfit"][j], color=MODEL_COLOUR, lw=1.0, ls="-.",
+                        label=rf"model, fitted $f_\mathrm{{SP}}$ = {d['f_sp_fit']:.3g}")
             _data(ax, d["t_data"], d["resid_data"][j], d["err_data"][j], d["dataset"])
             ax.set_ylabel(labels[j] + " res.")
             ax.set_xlim(d["t"][0], d["t"][-1])
         axes[0].tick_params(labelbottom=False)
         axes[1].set_xlabel("epoch (Julian yr)")
         axes[0].legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0)
-        fig.suptitle(f"Star {star}: sky positions against the Newtonian orbit "
-                     f"(fitted f_SP = {d['f_sp_fit']:.3g})", fontsize=10, fontweight="bold")
+        words = _strength_text("f_SP", d.get("f_sp_free", False), d["f_sp_fit"],
+                               d.get("f_sp_sigma", 0.0))
+        fig.suptitle(f"Star {star}: sky positions against the Newtonian orbit ({words})",
+                     fontsize=10, fontweight="bold")
     return fig
 
 
