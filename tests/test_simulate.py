@@ -302,3 +302,25 @@ def test_simulate_command_writes_new_folder(tmp_path):
     assert main(["simulate", str(desc), "--out", str(tmp_path / "new")]) == 2  # now non-empty
     velocities = pd.read_csv(tmp_path / "new" / "velocities.csv")
     assert len(velocities) == len(simulate(load_description(desc)).velocities)
+
+
+def test_fit_of_a_simulated_scenario_uses_the_reference_epoch_it_states(tmp_path, capsys):
+    # The description states reference_epoch = 2010 (x0 = 1.25 mas then; 0 at 2000 with the
+    # drift of 0.125 mas/yr): a fit of the folder alone must quote x0 at 2010, and a
+    # settings file that chooses another epoch wins with a warning.
+    light = BASE.replace("cadence = 40.0", "cadence = 2.0")  # 50 epochs per campaign
+    folder = write_scenario(_write(tmp_path, light), tmp_path / "scen")
+    out = tmp_path / "rep"
+    assert main(["fit", str(folder), "--out", str(out), "--newtonian", "--no-figures",
+                 "-q"]) == 0
+    summary = json.loads((out / "summary.json").read_text())
+    x0 = summary["parameters"]["x0"]
+    assert summary["reference_epoch"] == 2010.0
+    assert abs(x0["value"] - 1.25) < 3 * x0["sigma"]
+    settings = tmp_path / "s.toml"
+    settings.write_text("reference_epoch = 2000.0\n")
+    assert main(["fit", str(folder), "--out", str(tmp_path / "rep2"), "--newtonian",
+                 "--no-figures", "--settings", str(settings)]) == 0
+    assert "states reference_epoch = 2010" in capsys.readouterr().err
+    assert json.loads((tmp_path / "rep2" / "summary.json").read_text())["reference_epoch"] \
+        == 2000.0

@@ -33,7 +33,6 @@ from pathlib import Path
 import numpy as np
 
 from deepwell.core.jsonsafe import json_safe
-from deepwell.core.units import UNITS
 from deepwell.core.version import __version__
 from deepwell.model.quality import GOOD_RPERI_ERROR, POOR_COVERAGE, POOR_PERIOD_ERROR
 from deepwell.results.compactness import compactness, compactness_paragraph
@@ -180,7 +179,9 @@ def summary_dict(result, extra=None, posterior=None, profile=None, extended_limi
     params = {}
     for name in shared:
         value, sigma = result.value(name), result.sigma(name)
-        params[name] = {"value": _num(value), "sigma": _num(sigma), "unit": UNITS.get(name, "")}
+        fixed = not bool(result.free[result.model.layout.index(name)])
+        params[name] = {"value": _num(value), "sigma": None if fixed else _num(sigma),
+                        "unit": result.model.layout.spec(name).unit, "fixed": fixed}
     stars, fit_stars = {}, {}
     for star in result.stars:
         stars[star] = {q: _q(result, f"{star}:{q}") for q in SUMMARY_STAR_ORDER}

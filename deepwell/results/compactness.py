@@ -259,8 +259,8 @@ class CompactnessReport:
             for name, v in self.lifetimes.items()
         }
         return {
-            "mass": q(self.mass, "solMass"), "r_peri": q(self.r_peri_au, "au"),
-            "schwarzschild_radius": q(self.schwarzschild_radius_au, "au"),
+            "mass": q(self.mass, "solMass"), "r_peri": q(self.r_peri_au, "AU"),
+            "schwarzschild_radius": q(self.schwarzschild_radius_au, "AU"),
             "schwarzschild_radius_km": q(self.schwarzschild_radius_km, "km"),
             "r_peri_in_rs": q(self.r_peri_in_rs, ""), "r_peri_in_10rs": q(self.r_peri_in_10rs, ""),
             "v_esc_over_c": q(self.v_esc_over_c, ""),
@@ -340,8 +340,8 @@ def compactness_from_samples(mass_samples, rperi_samples, galaxy_age_yr=GALAXY_A
         raise ValueError(f"mass_samples and rperi_samples differ in length: {m.size} vs {r.size}")
     lifetimes = cluster_lifetimes(m, r, galaxy_age_yr=galaxy_age_yr)
     values = {
-        "mass": (m, "solMass"), "r_peri": (r, "au"),
-        "schwarzschild_radius": (schwarzschild_radius_au(m), "au"),
+        "mass": (m, "solMass"), "r_peri": (r, "AU"),
+        "schwarzschild_radius": (schwarzschild_radius_au(m), "AU"),
         "r_peri_in_rs": (radius_in_schwarzschild_radii(m, r), ""),
         "v_esc_over_c": (escape_fraction_of_c(m, r), ""),
         "mean_density_lower_limit": (mean_density(m, r), "solMass / pc3"),

@@ -6,6 +6,9 @@ replaces ``out`` only when everything is written (a failed run leaves an
 existing folder untouched).
 """
 
+import dataclasses
+import math
+import tomllib
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -16,7 +19,7 @@ from deepwell.report import discard_output, install_output, prepare_output, writ
 from deepwell.results import analyse
 from deepwell.tables import read_external_constraints, read_observations
 
-__all__ = ["FitJob", "fit_report", "chains_folder"]
+__all__ = ["FitJob", "fit_report", "chains_folder", "described_epoch", "epoch_settings"]
 
 
 @dataclass(frozen=True)
@@ -58,6 +61,39 @@ def chains_folder(out):
     return Path(str(Path(out)) + ".chains")
 
 
+def described_epoch(scenario):
+    """The reference epoch stated by a scenario folder's ``description.toml``, or None.
+
+    A simulated scenario (``deepwell simulate``) states the epoch its frame
+    terms x0, y0 refer to; None when the folder has no readable description.
+    """
+    path = Path(scenario) / "description.toml"
+    try:
+        value = tomllib.loads(path.read_text(encoding="utf-8")).get("reference_epoch")
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
+        return None
+    return float(value) if isinstance(value, (int, float)) and math.isfinite(value) else None
+
+
+def epoch_settings(scenario, settings, say):
+    """Settings whose reference epoch is the scenario's stated one, unless the user chose one.
+
+    The settings file wins when it sets ``reference_epoch``; a difference from
+    the scenario's description is then said in a warning.
+    """
+    stated = described_epoch(scenario)
+    if stated is None or stated == settings.reference_epoch:
+        return settings
+    if "reference_epoch" in settings.raw:
+        warnings.warn(UserWarning(
+            f"the scenario's description.toml states reference_epoch = {stated:g}; the fit "
+            f"uses {settings.reference_epoch:g} from the settings, so x0, y0 refer to that "
+            "epoch"), stacklevel=2)
+        return settings
+    say(f"reference epoch {stated:g} from the scenario's description.toml")
+    return dataclasses.replace(settings, reference_epoch=stated)
+
+
 def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=None):
     """Fit ``scenario`` with ``settings`` and write the report folder ``out``.
 
@@ -82,6 +118,7 @@ def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=No
     """
     say = progress or (lambda text: None)
     replace = replace or job.resume
+    settings = epoch_settings(scenario, settings, say)
     obs = read_observations(scenario, min_epochs=settings.min_epochs, strict=job.strict)
     external = read_external_constraints(job.external) if job.external else None
     tmp = prepare_output(out, replace=replace)
