@@ -68,13 +68,7 @@ def calibration_markdown(result):
              f"{result.mode} intervals; {result.elapsed:.0f} s.", ""]
     for row in t.itertuples():
         unit = result.units[row.parameter]
-        if row.honest:
-            say = "honest: both intervals contain the truth as often as they claim"
-        else:
-            bad = [f"the {tag}% interval is {getattr(row, 'verdict' + tag)}" for tag in _TAGS
-                   if getattr(row, "verdict" + tag) != "honest"]
-            say = "NOT honest: " + " and ".join(bad)
-        lines.append(f"- **{row.parameter}**: {say}. Coverage "
+        lines.append(f"- **{row.parameter}**: {row.statement}. Coverage "
                      f"{row.coverage68:.3f} (band {row.band68_lo:.3f}-{row.band68_hi:.3f}) "
                      f"and {row.coverage95:.3f} (band {row.band95_lo:.3f}-"
                      f"{row.band95_hi:.3f}) over {row.trials} trials; mean bias "

@@ -82,7 +82,7 @@ from deepwell.tables.settings import Settings, SharedSetting
 from .journal import TrialJournal
 from .simulate import load_description, simulate
 
-__all__ = ["LEVELS", "BAND_LEVEL", "TrialSpec", "CalibrationResult",
+__all__ = ["LEVELS", "BAND_LEVEL", "TOO_FEW", "trials_to_tell", "TrialSpec", "CalibrationResult",
            "acceptance_band", "clopper_pearson", "scenario_description", "fit_settings",
            "calibrated_names", "observations_from", "run_trial", "open_client", "run_trials",
            "summarise", "calibrate"]
@@ -429,10 +429,39 @@ class CalibrationResult:
         return bool(self.table.honest.all())
 
 
-def _verdict(k, band):
+#: A coverage inside its band is called honest only when the band is narrower than
+#: +-TELL_HALF_WIDTH; a wider band cannot tell honest intervals from mis-stated ones.
+TELL_HALF_WIDTH = 0.1
+#: Verdict of a coverage inside a band too wide to tell.
+TOO_FEW = "too few trials to tell"
+
+
+def trials_to_tell(p, half_width=TELL_HALF_WIDTH):
+    """Trials needed for a 99.7% band of about +-half_width at level p (normal approximation)."""
+    return int(math.ceil(9.0 * p * (1.0 - p) / half_width**2))
+
+
+def _verdict(k, band, n):
     if k < band[0]:
         return "too narrow"
-    return "too wide" if k > band[1] else "honest"
+    if k > band[1]:
+        return "too wide"
+    return TOO_FEW if (band[1] - band[0]) / n > 2.0 * TELL_HALF_WIDTH else "honest"
+
+
+def _statement(row):
+    """One clause on a parameter's calibration, for calibration.md."""
+    verdicts = {tag: row[f"verdict{tag}"] for tag in _TAGS}
+    if row["honest"]:
+        return "honest: both intervals contain the truth as often as they claim"
+    if all(v in ("honest", TOO_FEW) for v in verdicts.values()):
+        need = max(trials_to_tell(p) for p in LEVELS)
+        return ("consistent with honest intervals, but too few trials to tell: the acceptance "
+                f"bands are wider than +-{TELL_HALF_WIDTH:g} (about {need} trials would "
+                "narrow them enough)")
+    bad = [f"the {tag}% interval is {v}" for tag, v in verdicts.items()
+           if v not in ("honest", TOO_FEW)]
+    return "NOT honest: " + " and ".join(bad)
 
 
 def summarise(trials, truth, level=BAND_LEVEL):
@@ -459,7 +488,7 @@ def summarise(trials, truth, level=BAND_LEVEL):
                         f"band{tag}_lo": band[0] / n if n else np.nan,
                         f"band{tag}_hi": band[1] / n if n else np.nan,
                         f"cp{tag}_lo": cp[0], f"cp{tag}_hi": cp[1],
-                        f"verdict{tag}": _verdict(k, band) if n else "no trials"})
+                        f"verdict{tag}": _verdict(k, band, n) if n else "no trials"})
         sd = lambda x: float(np.std(x, ddof=1)) if x.size > 1 else np.nan  # noqa: E731
         row.update(bias=float(np.mean(err)) if n else np.nan,
                    bias_err=sd(err) / math.sqrt(n) if n > 1 else np.nan,
@@ -467,6 +496,7 @@ def summarise(trials, truth, level=BAND_LEVEL):
                    bias_sigma_err=sd(pull) / math.sqrt(n) if n > 1 else np.nan,
                    pull_scatter=sd(pull))
         row["honest"] = row["verdict68"] == row["verdict95"] == "honest"
+        row["statement"] = _statement(row)
         rows.append(row)
     return pd.DataFrame(rows)
 
