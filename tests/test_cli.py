@@ -213,3 +213,14 @@ def test_options_that_cannot_be_used_are_refused_before_the_fit(scenario, tmp_pa
     assert len(line) == 1 and f"option {option}:" in line[0] and "column" not in line[0]
     assert "searching starting orbits" not in err and "Traceback" not in err
     assert not out.exists()
+
+
+def test_a_mistyped_option_gets_the_closest_real_one(scenario, tmp_path, capsys):
+    # argparse exits with status 2 on an unknown option (Python docs, argparse); deepwell
+    # adds the nearest option by difflib's ratio as a hint.
+    with pytest.raises(SystemExit) as info:
+        main(["fit", str(scenario), "--out", str(tmp_path / "out"), "--sampel"])
+    assert info.value.code == 2
+    err = capsys.readouterr().err
+    assert "unrecognized arguments: --sampel" in err and "did you mean --sample?" in err
+    assert not (tmp_path / "out").exists()

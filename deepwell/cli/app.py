@@ -6,8 +6,10 @@ exit status 2 (never a traceback).
 """
 
 import argparse
+import difflib
 import logging
 import os
+import re
 import signal
 import sys
 import threading
@@ -29,8 +31,21 @@ __all__ = ["main"]
 log = logging.getLogger("deepwell")
 
 
+class _Parser(argparse.ArgumentParser):
+    """The top-level parser: a mistyped option gets the closest real one as a hint."""
+
+    def error(self, message):
+        words = re.findall(r"(--?[\w-]+)", message) if "unrecognized arguments" in message else []
+        known = sorted({o for sub in self._subparsers._group_actions[0].choices.values()
+                        for a in sub._actions for o in a.option_strings}) if self._subparsers \
+            else []
+        hints = [f"{w} (did you mean {m[0]}?)" for w in words
+                 if (m := difflib.get_close_matches(w, known, n=1, cutoff=0.6))]
+        super().error(message + ("; " + "; ".join(hints) if hints else ""))
+
+
 def _parser():
-    parser = argparse.ArgumentParser(
+    parser = _Parser(
         prog="deepwell",
         description="Weigh the dark mass at a galaxy's centre from the orbits of its stars.",
     )
