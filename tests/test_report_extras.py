@@ -373,3 +373,15 @@ def test_effect_figure_titles_say_held_or_fitted(obs, rel_fit, rel_sizes):
     assert s > 0 and f"fitted f = {f:.3g} ± {s:.2g}" in fig._suptitle.get_text()
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert f"model, fitted f = {f:.3g}" in labels
+
+
+def test_assumptions_name_the_integrated_stars_without_a_phantom_rest(rel_fit, rel_report):
+    # Wording check: "the others on fixed Keplerian ellipses" only when there are others.
+    text = (rel_report / "report.md").read_text()
+    integ = [s for s, i in zip(rel_fit.stars, rel_fit.model.integrated, strict=True) if i]
+    assert integ
+    if len(integ) == len(rel_fit.stars):
+        assert "every star moves on an integrated orbit" in text
+        assert "the others on fixed Keplerian" not in text
+    else:
+        assert "the others on fixed Keplerian ellipses" in text

@@ -274,10 +274,16 @@ def _assumptions(result):
     fx = m.effects
     integ = [s for s, i in zip(m.stars, m.integrated, strict=True) if i]
     if fx.any_on:
-        orbit = ("stars " + ", ".join(integ) + " move on integrated orbits (first "
-                 "post-Newtonian order" + (" plus the extended mass" if fx.extended_mass
-                                           else "") + "), the others on fixed Keplerian "
-                 "ellipses") if integ else "the stars move on fixed Keplerian ellipses"
+        how = ("first post-Newtonian order" + (" plus the extended mass" if fx.extended_mass
+                                               else ""))
+        if integ and len(integ) == len(m.stars):
+            orbit = f"every star moves on an integrated orbit ({how})"
+        elif integ:
+            orbit = (("star " if len(integ) == 1 else "stars ") + ", ".join(integ)
+                     + (" moves" if len(integ) == 1 else " move")
+                     + f" on integrated orbits ({how}), the others on fixed Keplerian ellipses")
+        else:
+            orbit = "the stars move on fixed Keplerian ellipses"
         ext = (f"an extended mass is included as a Plummer sphere of fixed scale radius "
                f"{fx.extended_scale:g} au (other profiles would give other results)"
                if fx.extended_mass else "no extended mass (such as a star cluster) is included")
