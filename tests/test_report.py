@@ -237,7 +237,8 @@ def _parse_pm(cell):
 def test_latex_tables_are_booktabs_and_round_to_the_error(result, report_dir):
     shared = (report_dir / "tables" / "shared.tex").read_text()
     stars = (report_dir / "tables" / "stars.tex").read_text()
-    for tex in (shared, stars):
+    numbers = (report_dir / "tables" / "star_numbers.tex").read_text()
+    for tex in (shared, stars, numbers):
         for rule in (r"\toprule", r"\midrule", r"\bottomrule"):
             assert tex.count(rule) >= 1
         assert tex.count(r"\begin{tabular}") == tex.count(r"\end{tabular}") == 1
@@ -246,9 +247,9 @@ def test_latex_tables_are_booktabs_and_round_to_the_error(result, report_dir):
     # 2 significant digits of the error (common practice): error within 5 % of its first digit
     assert error == pytest.approx(result.sigma("mass"), rel=0.05)
     assert abs(value - result.value("mass")) <= 0.5 * error / 10
-    row = next(line for line in stars.splitlines() if line.startswith("br-04 &"))
+    row = next(line for line in stars.splitlines() if line.startswith("br-04"))
     cells = row.rstrip(" \\").split("&")
-    assert len(cells) == 15
+    assert len(cells) == 8  # star and seven elements; derived numbers in star_numbers.tex
     e_val, e_err = _parse_pm(cells[3])
     assert e_val == pytest.approx(result.value("br-04:e"), abs=0.5 * e_err / 10)
 
@@ -397,3 +398,19 @@ def test_full_report_with_figures(result, tmp_path):
     manifest = json.loads((final / MANIFEST).read_text())["files"]
     on_disk = {p.relative_to(final).as_posix() for p in final.rglob("*") if p.is_file()}
     assert set(manifest) == on_disk - {MANIFEST}
+
+
+def test_latex_tables_mark_fixed_values_and_order_stars_by_name(result, report_dir):
+    # Journal-ready tables (common practice): every symbol in maths, held parameters marked
+    # as fixed rather than given an error of zero, stars in natural name order, at most
+    # nine columns per table.
+    shared = (report_dir / "tables" / "shared.tex").read_text()
+    assert "(fixed)" not in shared  # every parameter of this fit is free
+    stars = (report_dir / "tables" / "stars.tex").read_text().splitlines()
+    names = [line.split("&")[0].split("$")[0].strip() for line in stars
+             if line.startswith("br-")]
+    assert names == sorted(names, key=lambda s: int(s.split("-")[1]))
+    for tex in ("stars.tex", "star_numbers.tex"):
+        body = (report_dir / "tables" / tex).read_text()
+        spec = body[body.index(r"\begin{tabular}{") + len(r"\begin{tabular}{"):].split("}")[0]
+        assert len(spec) <= 9

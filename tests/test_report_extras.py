@@ -385,3 +385,16 @@ def test_assumptions_name_the_integrated_stars_without_a_phantom_rest(rel_fit, r
         assert "the others on fixed Keplerian" not in text
     else:
         assert "the others on fixed Keplerian ellipses" in text
+
+
+def test_shared_latex_table_marks_held_strengths_as_fixed(rel_fit, rel_report):
+    # f and f_sp are held at 1 by default: marked "(fixed)" with their own symbol and
+    # description, never given a zero error.
+    shared = (rel_report / "tables" / "shared.tex").read_text().splitlines()
+    lay = rel_fit.model.layout
+    for name in lay.shared_names:
+        spec = lay.spec(name)
+        row = next(line for line in shared if f"& ${spec.latex}$ &" in line)
+        fixed = not rel_fit.free[lay.index(name)]
+        assert ("(fixed)" in row) == fixed and ("\\pm" not in row) == fixed, row
+    assert not rel_fit.free[lay.index("f")] and not rel_fit.free[lay.index("f_sp")]

@@ -7,19 +7,19 @@ practice).
 """
 
 import math
+import re
 from pathlib import Path
 
 import astropy.units as u
 import numpy as np
 from astropy.table import Table
 
-from deepwell.core.parameters import SHARED
 from deepwell.core.units import UNITS
 from deepwell.core.version import __version__
 
 __all__ = ["format_value_error", "format_asymmetric", "star_numbers", "shared_table",
-           "stars_table", "latex_shared", "latex_stars", "write_tables", "STAR_COLUMNS",
-           "OSCULATING_STATEMENT"]
+           "stars_table", "latex_shared", "latex_stars", "latex_star_numbers", "write_tables",
+           "STAR_COLUMNS", "OSCULATING_STATEMENT"]
 
 #: Per-star columns with an error, in table order: (name, unit, LaTeX symbol).
 STAR_COLUMNS = (
@@ -244,13 +244,17 @@ def _tex_unit(unit):
 def latex_shared(result):
     """The shared parameters as a booktabs LaTeX table (needs \\usepackage{booktabs})."""
     rows = []
-    for name in result.model.layout.shared_names:
-        spec = SHARED.get(name)
-        descr = spec.description if spec else name
-        sym = f"${spec.latex}$" if spec and spec.latex else _tex_escape(name)
-        rows.append(f"{_tex_escape(descr.capitalize())} & {sym} & "
-                    f"{_pm(result.value(name), result.sigma(name))} & "
-                    f"{_tex_unit(UNITS.get(name, ''))} \\\\")
+    lay = result.model.layout
+    for name in lay.shared_names:
+        spec = lay.spec(name)
+        descr = spec.description or name
+        sym = f"${spec.latex}$" if spec.latex else _tex_escape(name)
+        if result.free[lay.index(name)]:
+            value = _pm(result.value(name), result.sigma(name))
+        else:
+            value = f"${result.value(name):.6g}$ (fixed)"
+        rows.append(f"{_tex_escape(descr[:1].upper() + descr[1:])} & {sym} & {value} & "
+                    f"{_tex_unit(spec.unit)} \\\\")
     rows += [r"\midrule",
              f"Correlation of mass and distance & $\\rho$ & "
              f"${result.mass_distance_correlation:.3f}$ & \\\\",
@@ -269,44 +273,75 @@ def latex_shared(result):
         r"\bottomrule", r"\end{tabular}", r"\end{table}", ""])
 
 
-def latex_stars(result, numbers=None):
-    """Per-star elements and derived numbers as a booktabs LaTeX table* (two columns wide)."""
-    numbers = numbers or {s: star_numbers(result, s) for s in result.stars}
-    head = ["Star"] + [f"${sym}$" for _, _, sym in STAR_COLUMNS] + [
-        r"$r_\mathrm{p}/R_\mathrm{s}$", r"$v_\mathrm{p}$", "Cov.", r"$N_\mathrm{pos}$",
-        r"$N_{v}$", r"$\chi^2_\nu$"]
-    units = [""] + [f"({_tex_unit(unit)})" if unit else "" for _, unit, _ in STAR_COLUMNS] + [
-        "", r"(km\,s$^{-1}$)", "", "", "", ""]
-    rows = []
-    for s in result.stars:
-        n = numbers[s]
-        k = result.stars.index(s)
-        cells = [_tex_escape(s) + (OSCULATING_MARK if result.model.integrated[k] else "")]
-        cells += [_pm(result.value(f"{s}:{q}"), result.sigma(f"{s}:{q}"))
-                  for q, _, _ in STAR_COLUMNS]
-        cells += [_pm(n["r_peri_rs"], n["r_peri_rs_err"]),
-                  _pm(n["v_peri_kms"], n["v_peri_kms_err"]),
-                  f"{n['coverage']:.2f}", str(n["n_positions"]), str(n["n_velocities"]),
-                  f"{n['reduced_chi2']:.2f}"]
-        rows.append(" & ".join(cells) + r" \\")
+def _star_order(result):
+    """Stars in natural name order (br-2 before br-10), for the tables."""
+    return sorted(result.stars, key=lambda name: [int(t) if t.isdigit() else t.lower()
+                                                  for t in re.split(r"(\d+)", str(name))])
+
+
+def _latex_table(head, units, rows, caption, label):
     ncol = len(head)
-    return "\n".join([
-        "% deepwell " + __version__ + ": per-star orbits; requires \\usepackage{booktabs}",
-        r"\begin{table*}", r"\centering", r"\scriptsize", r"\setlength{\tabcolsep}{3pt}",
-        r"\caption{Orbits of the stars around the central mass. $r_\mathrm{p}$: pericentre "
-        r"distance; $R_\mathrm{s}$: Schwarzschild radius; $v_\mathrm{p}$: speed at pericentre; "
-        r"Cov.: fraction of the orbit covered by position epochs; $N_\mathrm{pos}$, $N_v$: "
-        r"numbers of position and radial-velocity epochs. Uncertainties are $1\sigma$ from the "
-        r"stated data errors, not rescaled by the reduced $\chi^2$; angles in degrees, "
-        r"$\Omega$ and $\omega$ in $[0, 360)$."
-        + (r" $^\dagger$: orbit integrated with the 1PN equation of motion; its elements are "
-           r"osculating Keplerian elements at the apocentre epoch $t_\mathrm{p} + P/2$, so "
-           r"$t_\mathrm{p}$ is not the epoch of the observed pericentre passage."
-           if result.model.integrated.any() else "") + "}",
-        r"\label{tab:deepwell-stars}",
-        r"\begin{tabular}{l" + "c" * (ncol - 1) + "}", r"\toprule",
-        " & ".join(head) + r" \\", " & ".join(units) + r" \\", r"\midrule", *rows,
-        r"\bottomrule", r"\end{tabular}", r"\end{table*}", ""])
+    return [r"\begin{table*}", r"\centering", r"\small", r"\caption{" + caption + "}",
+            r"\label{" + label + "}", r"\begin{tabular}{l" + "c" * (ncol - 1) + "}", r"\toprule",
+            " & ".join(head) + r" \\", " & ".join(units) + r" \\", r"\midrule", *rows,
+            r"\bottomrule", r"\end{tabular}", r"\end{table*}"]
+
+
+def _star_name(result, s):
+    k = result.stars.index(s)
+    return _tex_escape(s) + (OSCULATING_MARK if result.model.integrated[k] else "")
+
+
+_ERRORS_NOTE = (r"Uncertainties are $1\sigma$ from the stated data errors, not rescaled by the "
+                r"reduced $\chi^2$.")
+
+
+def latex_stars(result, numbers=None):
+    """Per-star orbital elements as a booktabs LaTeX table (8 columns, stars by name)."""
+    cols = [c for c in STAR_COLUMNS if c[0] != "r_peri"]
+    head = ["Star"] + [f"${sym}$" for _, _, sym in cols]
+    units = [""] + [f"({_tex_unit(unit)})" if unit else "" for _, unit, _ in cols]
+    rows = [" & ".join([_star_name(result, s)]
+                       + [_pm(result.value(f"{s}:{q}"), result.sigma(f"{s}:{q}"))
+                          for q, _, _ in cols]) + r" \\" for s in _star_order(result)]
+    caption = (r"Orbital elements of the stars around the central mass: period $P$, angular "
+               r"semi-major axis $a$, eccentricity $e$, inclination $i$, position angle of the "
+               r"ascending node $\Omega$, argument of pericentre $\omega$ (both in $[0, 360)$ "
+               r"deg), epoch of pericentre $t_\mathrm{p}$ (Julian year, TT). " + _ERRORS_NOTE
+               + (r" $^\dagger$: orbit integrated with the 1PN equation of motion; its elements "
+                  r"are osculating Keplerian elements at the apocentre epoch "
+                  r"$t_\mathrm{p} + P/2$, so $t_\mathrm{p}$ is not the epoch of the observed "
+                  r"pericentre passage." if result.model.integrated.any() else ""))
+    return "\n".join(["% deepwell " + __version__ + ": per-star orbital elements; requires "
+                      "\\usepackage{booktabs}",
+                      *_latex_table(head, units, rows, caption, "tab:deepwell-stars"), ""])
+
+
+def latex_star_numbers(result, numbers=None):
+    """Per-star derived numbers (pericentre, speed, coverage, fit) as a booktabs LaTeX table."""
+    numbers = numbers or {s: star_numbers(result, s) for s in result.stars}
+    head = ["Star", r"$r_\mathrm{p}$", r"$r_\mathrm{p}/R_\mathrm{s}$", r"$v_\mathrm{p}$",
+            "Cov.", r"$N_\mathrm{pos}$", r"$N_{v}$", r"$\chi^2_\nu$"]
+    units = ["", "(au)", "", r"(km\,s$^{-1}$)", "", "", "", ""]
+    rows = []
+    for s in _star_order(result):
+        n = numbers[s]
+        rows.append(" & ".join([
+            _star_name(result, s), _pm(result.value(f"{s}:r_peri"), result.sigma(f"{s}:r_peri")),
+            _pm(n["r_peri_rs"], n["r_peri_rs_err"]), _pm(n["v_peri_kms"], n["v_peri_kms_err"]),
+            f"{n['coverage']:.2f}", str(n["n_positions"]), str(n["n_velocities"]),
+            f"{n['reduced_chi2']:.2f}"]) + r" \\")
+    caption = (r"Derived numbers of the stars: pericentre distance $r_\mathrm{p}$, in "
+               r"Schwarzschild radii $R_\mathrm{s}$ of the central mass, speed at pericentre "
+               r"$v_\mathrm{p}$ (vis-viva), fraction of the orbit covered by position epochs "
+               r"(Cov.), numbers of position and radial-velocity epochs, and the reduced "
+               r"$\chi^2$ of each star. " + _ERRORS_NOTE
+               + (r" $^\dagger$: integrated orbit (see the elements table)."
+                  if result.model.integrated.any() else ""))
+    return "\n".join(["% deepwell " + __version__ + ": per-star derived numbers; requires "
+                      "\\usepackage{booktabs}",
+                      *_latex_table(head, units, rows, caption, "tab:deepwell-star-numbers"),
+                      ""])
 
 
 def write_tables(result, folder, numbers=None, sizes=None):
@@ -317,10 +352,12 @@ def write_tables(result, folder, numbers=None, sizes=None):
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     numbers = numbers or {s: star_numbers(result, s) for s in result.stars}
-    paths = [folder / n for n in ("shared.ecsv", "shared.tex", "stars.ecsv", "stars.tex")]
+    paths = [folder / n for n in ("shared.ecsv", "shared.tex", "stars.ecsv", "stars.tex",
+                                  "star_numbers.tex")]
     shared_table(result).write(paths[0], format="ascii.ecsv", overwrite=True)
     paths[1].write_text(latex_shared(result), encoding="utf-8")
     stars_table(result, numbers, sizes).write(paths[2], format="ascii.ecsv", overwrite=True)
     paths[3].write_text(latex_stars(result, numbers), encoding="utf-8")
+    paths[4].write_text(latex_star_numbers(result, numbers), encoding="utf-8")
     return paths
 

@@ -428,7 +428,8 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
     out += ["## Files", "",
             "- `summary.json`: all numbers with units, settings, input checksums, notes.",
             "- `tables/shared.ecsv`, `tables/stars.ecsv`: tables with units (astropy ECSV).",
-            "- `tables/shared.tex`, `tables/stars.tex`: LaTeX tables (booktabs).",
+            "- `tables/shared.tex`, `tables/stars.tex`, `tables/star_numbers.tex`: LaTeX tables "
+            "(booktabs).",
             "- Further tables of the sections above (effects, enclosed mass, extended mass, "
             "posterior), where computed, in `tables/`.", "",
             f"Written by deepwell {__version__}.", ""]
