@@ -8,8 +8,10 @@ exit status 2 (never a traceback).
 import argparse
 import logging
 import os
+import signal
 import sys
 import warnings
+from contextlib import contextmanager
 
 from threadpoolctl import threadpool_limits
 
@@ -25,6 +27,34 @@ from .simulate import add_simulate_parser
 __all__ = ["main"]
 
 log = logging.getLogger("deepwell")
+
+
+class Terminated(BaseException):
+    """Raised in the main process by SIGTERM, so that temporary folders are cleaned up."""
+
+
+@contextmanager
+def sigterm_cleans_up():
+    """While active, SIGTERM raises :class:`Terminated` in this process (forked workers,
+    which inherit the handler, still die at once)."""
+    main_pid = os.getpid()
+
+    def handler(signum, frame):
+        if os.getpid() != main_pid:
+            signal.signal(signal.SIGTERM, signal.SIG_DFL)
+            os.kill(os.getpid(), signal.SIGTERM)
+            return
+        raise Terminated
+
+    try:
+        old = signal.signal(signal.SIGTERM, handler)
+    except ValueError:  # not the main thread: leave the signal alone
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, old)
 
 
 def _parser():
@@ -60,7 +90,8 @@ def main(argv=None):
     warnings.formatwarning = lambda message, category, *rest, **kw: \
         f"{category.__name__}: {message}"  # one line, no source line
     try:
-        with warnings.catch_warnings(), threadpool_limits(limits=1, user_api="blas"):
+        with warnings.catch_warnings(), threadpool_limits(limits=1, user_api="blas"), \
+                sigterm_cleans_up():
             warnings.simplefilter("default")
             return args.func(args)
     except DeepwellError as exc:
@@ -69,6 +100,10 @@ def main(argv=None):
     except KeyboardInterrupt:
         print("deepwell: interrupted; nothing was written", file=sys.stderr)
         return 130
+    except Terminated:
+        print("deepwell: terminated (SIGTERM); temporary folders removed",
+              file=sys.stderr)
+        return 143
     finally:
         logging.captureWarnings(False)
         warnings.formatwarning = shown

@@ -1,0 +1,329 @@
+"""The report folder as a trust boundary, and bounded work on absurd input.
+
+Every file in a report folder is treated as possibly hostile and every run as
+possibly killed at any instant: nothing outside ``--out`` is ever written or
+moved, a replace leaves the old report or the new one whole, saved state is
+checked before use, and absurd input is refused with one line (exit 2).
+The rules are common practice for tools that write into user folders; the
+numbers checked are file contents (bytes) and exit statuses, which are known
+independently of deepwell.
+"""
+
+import hashlib
+import json
+import os
+import shutil
+import signal
+import time
+from pathlib import Path
+
+import pytest
+
+from deepwell.cli import main
+from deepwell.cli.app import Terminated, sigterm_cleans_up
+from deepwell.core.errors import OutputError
+from deepwell.report import outdir
+from deepwell.report.outdir import MANIFEST, install_output, prepare_output, staged_output
+
+
+# ------------------------------------------------------------------ helpers
+def _one_line_error(capsys):
+    err = capsys.readouterr().err.strip().splitlines()
+    errors = [line for line in err if "error:" in line]
+    assert len(errors) == 1, err
+    assert "Traceback" not in "\n".join(err)
+    return errors[0]
+
+
+def _snapshot(folder):
+    """Everything under ``folder``, links not followed: {path: bytes | link target | 'dir'}."""
+    folder = Path(folder)
+    if not os.path.lexists(folder):
+        return None
+    out = {}
+    for dirpath, dirs, files in os.walk(folder):
+        for name in dirs + files:
+            p = Path(dirpath) / name
+            rel = p.relative_to(folder).as_posix()
+            if p.is_symlink():
+                out[rel] = ("link", os.readlink(p))
+            elif p.is_dir():
+                out[rel] = "dir"
+            else:
+                out[rel] = p.read_bytes()
+    return out
+
+
+def _sha(data):
+    return hashlib.sha256(data).hexdigest()
+
+
+def _manifest(folder, files):
+    (Path(folder) / MANIFEST).write_text(json.dumps({"files": files}))
+
+
+def _fake_report(tmp, names):
+    for n in names:
+        (tmp / n).parent.mkdir(parents=True, exist_ok=True)
+        (tmp / n).write_text(f"new {n}")
+
+
+def _siblings(final):
+    return sorted(p.name for p in Path(final).parent.iterdir() if "deepwell-" in p.name)
+
+
+@pytest.fixture()
+def no_fit(monkeypatch):
+    """Make any fit fail loudly: the refusals tested here must come before it."""
+    def refuse(*args, **kwargs):
+        raise AssertionError("the fit ran although the output folder was unusable")
+    monkeypatch.setattr("deepwell.tools.pipeline.fit_joint", refuse)
+
+
+# ------------------------------------------- 1: no write outside --out through links
+def _outside(tmp_path):
+    out = tmp_path / "elsewhere"
+    out.mkdir()
+    (out / "stars.ecsv").write_text("someone else's table")
+    (out / "precious.txt").write_text("precious")
+    return out
+
+
+def _linked_subfolder(tmp_path):
+    """A crafted report: tables/ links to another folder, the manifest lists files there."""
+    rep, outside = tmp_path / "rep", _outside(tmp_path)
+    rep.mkdir()
+    (rep / "summary.json").write_text("{}")
+    (rep / "tables").symlink_to(outside, target_is_directory=True)
+    _manifest(rep, {"summary.json": _sha(b"{}"),
+                    "tables/stars.ecsv": _sha(b"someone else's table"),
+                    "tables/precious.txt": _sha(b"precious")})
+    return rep, outside
+
+
+def _linked_file(tmp_path):
+    """A crafted report whose manifest entry summary.json is a link to an outside file."""
+    rep, outside = tmp_path / "rep", _outside(tmp_path)
+    rep.mkdir()
+    (rep / "summary.json").symlink_to(outside / "precious.txt")
+    _manifest(rep, {"summary.json": _sha(b"precious")})
+    return rep, outside
+
+
+def _subfolder_is_link_to_file(tmp_path):
+    """figures/ replaced by a link to a file (issue 16)."""
+    rep, outside = tmp_path / "rep", _outside(tmp_path)
+    rep.mkdir()
+    (rep / "figures").symlink_to(outside / "precious.txt")
+    _manifest(rep, {"figures/sky.png": _sha(b"x")})
+    return rep, outside
+
+
+def _subfolder_is_file(tmp_path):
+    """figures replaced by a plain file, with the manifest listing files under it."""
+    rep, outside = tmp_path / "rep", _outside(tmp_path)
+    rep.mkdir()
+    (rep / "figures").write_text("not a folder")
+    _manifest(rep, {"figures/sky.png": _sha(b"x")})
+    return rep, outside
+
+
+@pytest.mark.parametrize("craft, words", [(_linked_subfolder, "symbolic link"),
+                                          (_linked_file, "symbolic link"),
+                                          (_subfolder_is_link_to_file, "symbolic link"),
+                                          (_subfolder_is_file, "is not a folder")])
+def test_replace_never_follows_a_link_out_of_the_report_folder(tmp_path, capsys, small_scenario,
+                                                               no_fit, craft, words):
+    rep, outside = craft(tmp_path)
+    before_out, before_rep = _snapshot(outside), _snapshot(rep)
+    code = main(["fit", str(small_scenario), "--out", str(rep), "--replace", "--no-figures"])
+    assert code == 2
+    msg = _one_line_error(capsys)
+    assert words in msg and str(rep) in msg
+    assert _snapshot(outside) == before_out  # the outside folder is byte-identical
+    assert _snapshot(rep) == before_rep and _siblings(rep) == []
+
+
+def test_link_planted_during_the_run_is_refused_at_install(tmp_path):
+    rep, outside = tmp_path / "rep", _outside(tmp_path)
+    with staged_output(rep) as tmp:
+        _fake_report(tmp, ("summary.json", "tables/stars.ecsv"))
+    tmp = prepare_output(rep, replace=True)
+    _fake_report(tmp, ("summary.json", "tables/stars.ecsv"))
+    shutil.rmtree(rep / "tables")  # swapped for a link while the fit ran
+    (rep / "tables").symlink_to(outside, target_is_directory=True)
+    before_out, before_rep = _snapshot(outside), _snapshot(rep)
+    with pytest.raises(OutputError, match="symbolic link") as exc:
+        install_output(tmp, rep, replace=True)
+    assert "\n" not in str(exc.value)
+    assert _snapshot(outside) == before_out and _snapshot(rep) == before_rep
+    assert _siblings(rep) == []
+
+
+def test_foreign_links_are_kept_as_links_and_never_followed(tmp_path):
+    rep, outside = tmp_path / "rep", _outside(tmp_path)
+    with staged_output(rep) as tmp:
+        _fake_report(tmp, ("summary.json",))
+    (rep / "data").symlink_to(outside, target_is_directory=True)  # the user's own link
+    before_out = _snapshot(outside)
+    with staged_output(rep, replace=True) as tmp:
+        _fake_report(tmp, ("summary.json", "tables/stars.ecsv"))
+    assert os.readlink(rep / "data") == str(outside)
+    assert _snapshot(outside) == before_out
+    assert (rep / "tables" / "stars.ecsv").read_text() == "new tables/stars.ecsv"
+
+
+# ------------------------------------------------ 2: the replace is atomic under SIGKILL
+OLD_FILES = ("summary.json", "report.md", "tables/stars.ecsv", "tables/old_only.ecsv",
+             "figures/sky.png", "figures/star_a.png")
+NEW_FILES = ("summary.json", "report.md", "tables/stars.ecsv", "tables/new_only.ecsv",
+             "figures/sky.png")
+_COUNTED = ("link", "symlink", "rename", "replace", "mkdir", "chmod", "unlink", "rmdir")
+
+
+def _earlier_report(root):
+    """An earlier report with foreign files beside and inside its folders."""
+    rep = root / "rep"
+    with staged_output(rep) as tmp:
+        for n in OLD_FILES:
+            (tmp / n).parent.mkdir(parents=True, exist_ok=True)
+            (tmp / n).write_text(f"old {n}")
+    (rep / "keep.txt").write_text("the user's notes")
+    (rep / "tables" / "mine.csv").write_text("the user's table")
+    (rep / "empty").mkdir()
+    (rep / "link").symlink_to("../nowhere")
+    return rep
+
+
+def _install_killed_at(rep, kill_at, exchange):
+    """Fork a child that replaces the report and is SIGKILLed before mutating step ``kill_at``."""
+    pid = os.fork()
+    if pid == 0:  # the child: never returns
+        try:
+            tmp = prepare_output(rep, replace=True)
+            _fake_report(tmp, NEW_FILES)
+            count = [0]
+
+            def counted(fn):
+                def wrapper(*args, **kwargs):
+                    if count[0] == kill_at:
+                        os.kill(os.getpid(), signal.SIGKILL)
+                    count[0] += 1
+                    return fn(*args, **kwargs)
+                return wrapper
+
+            for name in _COUNTED:
+                setattr(os, name, counted(getattr(os, name)))
+            if not exchange:
+                outdir._exchange = lambda a, b: False
+            else:
+                outdir._exchange = counted(outdir._exchange)
+            install_output(tmp, rep, replace=True)
+            os._exit(0)
+        except BaseException:
+            os._exit(3)
+    _, status = os.waitpid(pid, 0)
+    return status
+
+
+@pytest.mark.parametrize("exchange", [True, False], ids=["renameat2", "two-renames"])
+def test_kill_at_any_step_of_a_replace_leaves_the_old_or_the_new_report_whole(tmp_path,
+                                                                            exchange):
+    done = tmp_path / "done"
+    done.mkdir()
+    assert _install_killed_at(_earlier_report(done), -1, exchange) == 0
+    new = _snapshot(done / "rep")
+    assert {k for k, v in new.items() if v != "dir"} == {
+        *NEW_FILES, MANIFEST, "keep.txt", "tables/mine.csv", "link"}
+    k, outcomes = 0, set()
+    while True:
+        root = tmp_path / f"k{k}"
+        root.mkdir()
+        rep = _earlier_report(root)
+        old = _snapshot(rep)
+        status = _install_killed_at(rep, k, exchange)
+        if os.WIFEXITED(status):  # no step left to kill at
+            assert os.WEXITSTATUS(status) == 0 and _snapshot(rep) == new
+            break
+        assert os.WTERMSIG(status) == signal.SIGKILL
+        now = _snapshot(rep)
+        # between the two renames of the fallback the old folder is whole, aside
+        assert now in (old, new) or (not exchange and now is None)
+        # the next run cleans up (and puts an old report left aside back)
+        shutil.rmtree(prepare_output(rep, replace=True))
+        after = _snapshot(rep)
+        assert after in (old, new) and _siblings(rep) == []
+        outcomes.add("old" if after == old else "new")
+        k += 1
+    print(f"killed at each of {k} steps")
+    assert k > 5 and outcomes == {"old", "new"}  # killed before and after the swap
+
+
+def test_sigterm_while_writing_removes_the_temporary_folder(tmp_path):
+    rep = _earlier_report(tmp_path)
+    old = _snapshot(rep)
+    pid = os.fork()
+    if pid == 0:
+        try:
+            with sigterm_cleans_up(), staged_output(rep, replace=True) as tmp:
+                _fake_report(tmp, NEW_FILES)
+                os.kill(os.getpid(), signal.SIGTERM)
+                time.sleep(30)
+        except Terminated:
+            os._exit(143)
+        os._exit(0)
+    _, status = os.waitpid(pid, 0)
+    assert os.WEXITSTATUS(status) == 143
+    assert _snapshot(rep) == old and _siblings(rep) == []
+
+
+# ------------------------------------------------ 3: the kind of --out, before the fit
+def _link_to_empty(tmp_path):
+    (tmp_path / "real").mkdir()
+    (tmp_path / "out").symlink_to(tmp_path / "real", target_is_directory=True)
+    return str(tmp_path / "out"), "symbolic link"
+
+
+def _dangling(tmp_path):
+    (tmp_path / "out").symlink_to(tmp_path / "nowhere")
+    return str(tmp_path / "out"), "symbolic link"
+
+
+def _current(tmp_path):
+    return ".", "current folder"
+
+
+def _a_file(tmp_path):
+    (tmp_path / "out").write_text("x")
+    return str(tmp_path / "out"), "not a folder"
+
+
+@pytest.mark.parametrize("make", [_link_to_empty, _dangling, _current, _a_file])
+def test_unusable_out_is_refused_before_the_fit(tmp_path, capsys, monkeypatch, small_scenario,
+                                                no_fit, make):
+    monkeypatch.chdir(tmp_path)
+    out, words = make(tmp_path)
+    before = _snapshot(tmp_path)
+    assert main(["fit", str(small_scenario), "--out", out, "--no-figures"]) == 2
+    assert words in _one_line_error(capsys)
+    assert _snapshot(tmp_path) == before
+
+
+def test_mount_point_and_read_only_folder_are_refused_before_the_fit(tmp_path, capsys,
+                                                                   monkeypatch, small_scenario,
+                                                                   no_fit):
+    out = tmp_path / "mnt"
+    out.mkdir()
+    real = os.path.ismount
+    monkeypatch.setattr(os.path, "ismount", lambda p: os.fspath(p) == str(out) or real(p))
+    assert main(["fit", str(small_scenario), "--out", str(out), "--no-figures"]) == 2
+    assert "mount point" in _one_line_error(capsys)
+    monkeypatch.setattr(os.path, "ismount", real)
+    # a read-only folder (os.access is what a read-only mount answers, even for root)
+    real_access = os.access
+    monkeypatch.setattr(os, "access", lambda p, mode, **kw:
+                        False if os.fspath(p) == str(out) and mode & os.W_OK
+                        else real_access(p, mode, **kw))
+    assert main(["fit", str(small_scenario), "--out", str(out), "--no-figures"]) == 2
+    assert "not readable and writable" in _one_line_error(capsys)
+    assert list(out.iterdir()) == [] and _siblings(out) == []
