@@ -12,18 +12,25 @@ independently of deepwell.
 import hashlib
 import json
 import os
+import re
 import shutil
 import signal
 import time
 from pathlib import Path
 
+import numpy as np
 import pytest
+from astropy.time import Time
 
 from deepwell.cli import main
 from deepwell.cli.app import Terminated, sigterm_cleans_up
-from deepwell.core.errors import OutputError
+from deepwell.core.errors import DeepwellError, OutputError
 from deepwell.report import outdir
 from deepwell.report.outdir import MANIFEST, install_output, prepare_output, staged_output
+from deepwell.report.tables import _tex_escape, md_text
+from deepwell.results.saved_fit import load_fit
+from deepwell.tables.observations import read_positions
+from deepwell.tools.journal import TrialJournal
 
 
 # ------------------------------------------------------------------ helpers
@@ -327,3 +334,240 @@ def test_mount_point_and_read_only_folder_are_refused_before_the_fit(tmp_path, c
     assert main(["fit", str(small_scenario), "--out", str(out), "--no-figures"]) == 2
     assert "not readable and writable" in _one_line_error(capsys)
     assert list(out.iterdir()) == [] and _siblings(out) == []
+
+
+# --------------------------------------------- a positions-only fit, for the saved state
+@pytest.fixture(scope="module")
+def positions_only(tmp_path_factory, small_scenario):
+    """A report of a positions-only fit (distance fixed): (scenario, report, velocities)."""
+    root = tmp_path_factory.mktemp("posonly")
+    scen = root / "scen"
+    shutil.copytree(small_scenario, scen)
+    vel = root / "velocities.csv"
+    (scen / "velocities.csv").rename(vel)
+    settings = root / "settings.toml"
+    settings.write_text("[shared.distance]\nvalue = 5200.0\nfixed = true\n")
+    report = root / "rep"
+    assert main(["fit", str(scen), "--out", str(report), "--no-figures", "-q",
+                 "--settings", str(settings)]) == 0
+    return scen, report, vel
+
+
+def _plan(report, *extra):
+    return main(["plan", str(report), "--from", "2025", "--to", "2030", "--draws", "30",
+                 "--no-figures", "-q", *extra])
+
+
+def _copy_report(report, tmp_path):
+    dest = tmp_path / "rep"
+    shutil.copytree(report, dest, symlinks=True)
+    return dest
+
+
+# ---------------------------------------------------- 4: the set of input files is compared
+def test_plan_refuses_a_table_added_since_the_fit(positions_only, tmp_path, capsys):
+    scen, report, vel = positions_only
+    report = _copy_report(report, tmp_path)
+    copy = tmp_path / "scen"
+    shutil.copytree(scen, copy)
+    shutil.copy(vel, copy / "velocities.csv")
+    assert _plan(report, "--scenario", str(copy)) == 2
+    msg = _one_line_error(capsys)
+    assert "velocities.csv" in msg and "added since the fit" in msg
+    assert not (report / "plan").exists()
+    # the same folder without the added table plans (exit 0)
+    (copy / "velocities.csv").unlink()
+    assert _plan(report, "--scenario", str(copy)) == 0
+    assert (report / "plan" / "plan.md").is_file()
+
+
+# ------------------------------------------------------------ 5: bounded work
+@pytest.mark.parametrize("epoch", ["1e9", "-50000", "9999-12-31T23:59:60", "1799.9", "nan"])
+def test_absurd_epoch_is_refused_naming_file_line_and_column(tmp_path, capsys, epoch):
+    scen = tmp_path / "s"
+    scen.mkdir()
+    (scen / "positions.csv").write_text("star,epoch,ra,dec,ra_err,dec_err\n"
+                                        "x,2001,1,2,0.5,0.5\n"
+                                        f"x,{epoch},1,2,0.5,0.5\n"
+                                        "x,2003,1,2,0.5,0.5\n")
+    assert main(["fit", str(scen), "--out", str(tmp_path / "rep")]) == 2
+    msg = _one_line_error(capsys)
+    assert "positions.csv" in msg and "line 3" in msg and "'epoch'" in msg
+    assert not (tmp_path / "rep").exists()
+
+
+def test_iso_epoch_in_range_is_converted_as_astropy_does(tmp_path):
+    path = tmp_path / "positions.csv"
+    path.write_text("star,epoch,ra,dec,ra_err,dec_err\nx,2016-12-31T23:59:60,1,2,0.5,0.5\n")
+    # reference: astropy's UTC -> TT conversion of the same leap second (IERS leap-second
+    # table bundled with astropy/ERFA); 1e-9 yr ~ 0.03 s
+    want = Time("2016-12-31T23:59:60", scale="utc").tt.jyear
+    assert read_positions(path).epoch[0] == pytest.approx(want, abs=1e-9)
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--from", "2025", "--to", "1e7"], "outside the range"),
+    (["--from", "2025", "--to", "2300"], "at most 200 years"),
+    (["--from", "2025", "--to", "2030", "--step", "1e-6"], "at most 5000"),
+    (["--from", "2025", "--to", "2030", "--draws", "0"], "--draws"),
+    (["--from", "2025", "--to", "2030", "--resolution", "nan"], "--resolution"),
+])
+def test_plan_ranges_beyond_the_stated_limits_are_refused(positions_only, tmp_path, capsys,
+                                                          args, words):
+    report = _copy_report(positions_only[1], tmp_path)
+    code = main(["plan", str(report), *args, "--no-figures", "-q"])
+    assert code == 2
+    assert words in _one_line_error(capsys)
+    assert not (report / "plan").exists()
+
+
+def test_epochs_file_is_checked_and_closed(positions_only, tmp_path, capsys):
+    report = _copy_report(positions_only[1], tmp_path)
+    epochs = tmp_path / "epochs.txt"
+    epochs.write_text("# candidate epochs\n2026.3\n\n2027.3  # spring\n")
+    # warnings are errors in this suite: an unclosed file (ResourceWarning) fails the test
+    assert _plan(report, "--epochs-file", str(epochs)) == 0
+    forecast = (report / "plan" / "forecast.ecsv").read_text()
+    assert "2026.3000" in forecast and "2027.3000" in forecast
+    epochs.write_text("2026.3\n1e7\n")
+    assert _plan(report, "--epochs-file", str(epochs), "--replace") == 2
+    msg = _one_line_error(capsys)
+    assert "epochs.txt" in msg and "line 2" in msg
+
+
+# -------------------------------------------------------------- 6: text injection
+@pytest.mark.parametrize("column, row", [
+    ("star", 'x,2001,1,2,0.5,0.5,a\n"bad\n# Heading",2002,1,2,0.5,0.5,a\n'),
+    ("dataset", "x,2001,1,2,0.5,0.5,a\nx,2002,1,2,0.5,0.5,\"im\tager\"\n"),
+    ("star", "x,2001,1,2,0.5,0.5,a\n\"y\x1b[31m\",2002,1,2,0.5,0.5,a\n"),
+])
+def test_control_characters_in_names_are_refused(tmp_path, capsys, column, row):
+    scen = tmp_path / "s"
+    scen.mkdir()
+    (scen / "positions.csv").write_text("star,epoch,ra,dec,ra_err,dec_err,dataset\n" + row)
+    assert main(["fit", str(scen), "--out", str(tmp_path / "rep")]) == 2
+    msg = _one_line_error(capsys)
+    assert "positions.csv" in msg and "line 3" in msg and f"'{column}'" in msg
+    assert "control character" in msg
+
+
+def test_names_are_escaped_in_markdown_and_latex():
+    name = "s|1 #2 *x* [a](b) <i>_ \\ `c` !~"
+    cell = md_text(name)
+    # CommonMark 0.31.2, sect. 2.4: any ASCII punctuation may be backslash-escaped (the
+    # reader drops the backslash); GitHub-flavoured markdown tables: an escaped pipe does
+    # not split a cell
+    assert re.sub(r"\\([!-/:-@\[-`{-~])", r"\1", cell) == name
+    assert "|" not in cell.replace("\\|", "")
+    assert not re.search(r"(^|[^\\])[*_`#<\[]", cell)  # no unescaped markup left
+    assert "\n" not in md_text("a\nb") and md_text("a\nb") == "a\\u000ab"
+    # LaTeX specials (Lamport, LaTeX user's guide, sect. 2.2: # $ % & ~ _ ^ \ { })
+    tex = _tex_escape("a_b&c%d#e\nf")
+    assert tex == r"a\_b\&c\%d\#e f"
+
+
+# ------------------------------------------------- 7: saved state checked against its schema
+def _tamper_state(report, edit):
+    path = report / "fit-state.json"
+    state = json.loads(path.read_text())
+    path.write_text(json.dumps(edit(state)))
+
+
+def _drop(key):
+    def edit(state):
+        del state[key]
+        return state
+    return edit
+
+
+def _short(state):
+    state["internal"] = state["internal"][:-1]
+    return state
+
+
+def _bad_settings(state):
+    state["settings"]["min_epochs"] = "three"
+    return state
+
+
+def _text_vector(state):
+    state["free"] = ["yes"] * len(state["free"])
+    return state
+
+
+@pytest.mark.parametrize("edit, words", [
+    (lambda s: [s], "holds a list"),
+    (_drop("internal"), "'internal' is missing"),
+    (_drop("checksums"), "'checksums' is missing"),
+    (_short, "wrong type or length"),
+    (_text_vector, "'free'"),
+    (_bad_settings, "saved settings are invalid"),
+    (lambda s: {**s, "format": "something else"}, "'format'"),
+])
+def test_damaged_fit_state_is_refused_naming_the_file(positions_only, tmp_path, capsys, edit,
+                                                      words):
+    report = _copy_report(positions_only[1], tmp_path)
+    _tamper_state(report, edit)
+    assert _plan(report) == 2
+    msg = _one_line_error(capsys)
+    assert "fit-state.json" in msg and words in msg
+    assert not (report / "plan").exists()
+
+
+HEADER = {"scenario": "invented", "seed": 5}
+
+
+@pytest.mark.parametrize("record, words", [
+    ("[1, 2, 3]", "must be a JSON object"),
+    ('{"status": "ok"}', "no trial number"),
+    ('{"trial": "3", "status": "ok"}', "no trial number"),
+    ('{"trial": 2}', "'status'"),
+    ("{broken", "not a JSON record"),
+])
+def test_damaged_journal_record_is_refused_naming_file_and_line(tmp_path, record, words):
+    path = tmp_path / "out.trials.jsonl"
+    TrialJournal(path, HEADER).add({"trial": 0, "status": "ok", "chi2": 1.0})
+    with path.open("a") as fh:
+        fh.write(record + "\n")
+        fh.write('{"trial": 1, "status": "failed"}\n')
+    with pytest.raises(DeepwellError) as exc:
+        TrialJournal(path, HEADER, resume=True)
+    msg = str(exc.value)
+    assert "\n" not in msg and str(path) in msg and "line 3" in msg and words in msg
+
+
+def test_half_written_last_journal_line_is_still_ignored(tmp_path):
+    path = tmp_path / "out.trials.jsonl"
+    book = TrialJournal(path, HEADER)
+    for i in range(3):
+        book.add({"trial": i, "status": "ok"})
+    text = path.read_text()
+    path.write_text(text + text.splitlines()[-1][:12])  # as kill -9 can leave it
+    assert sorted(TrialJournal(path, HEADER, resume=True).done) == [0, 1, 2]
+
+
+# ------------------------------------------------------------- 9: line numbers
+def test_line_numbers_count_physical_lines_after_a_quoted_newline(tmp_path):
+    path = tmp_path / "positions.csv"
+    path.write_text("star,epoch,ra,dec,ra_err,dec_err,note\n"
+                    'x,2001,1,2,0.5,0.5,"a note\non two lines"\n'
+                    "\n"
+                    "x,2003,abc,2,0.5,0.5,\n")
+    with pytest.raises(DeepwellError) as exc:
+        read_positions(path)
+    # header 1, the quoted record 2-3, a blank line 4: the bad row is on line 5
+    assert "line 5" in str(exc.value) and "'ra'" in str(exc.value)
+
+
+# ------------------------------------------------------- 8: nonsense is not accepted
+def test_posterior_samples_with_nan_are_refused(positions_only, tmp_path, capsys):
+    scen, report, _ = positions_only
+    report = _copy_report(report, tmp_path)
+    fit = load_fit(report)
+    samples = np.repeat(fit.internal[None, :], 40, axis=0)
+    samples[7, 0] = np.nan
+    np.savez(report / "samples.npz", internal_samples=samples,
+             internal_names=np.array(fit.model.layout.names()))
+    assert _plan(report, "--samples", str(report / "samples.npz")) == 2
+    msg = _one_line_error(capsys)
+    assert "samples.npz" in msg and "not finite (NaN or infinite: 1 of" in msg

@@ -103,7 +103,8 @@ class TrialJournal:
                     continue
                 raise DeepwellError(f"{self.path}: line {i}: not a JSON record; the journal "
                                     "is damaged (delete it to start over)") from None
-            self.done[_check_record(rec, self.path, i)] = _restore(rec)
+            trial = _check_record(rec, self.path, i)
+            self.done[trial] = _restore(rec)
 
     def _append(self, obj):
         with open(self.path, "a") as fh:

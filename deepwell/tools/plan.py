@@ -634,6 +634,14 @@ def load_samples(path, result):
         raise InputError(f"not a file of posterior samples ({exc})", file=str(path)) from None
     if names != result.model.layout.names():
         raise InputError("the samples' parameters do not match the fit", file=str(path))
+    if samples.size == 0 or samples.size % len(names):
+        raise InputError(f"'internal_samples' does not hold rows of {len(names)} parameters",
+                         file=str(path))
+    bad = ~np.isfinite(samples)
+    if bad.any():
+        raise InputError(f"'internal_samples' holds values that are not finite (NaN or "
+                         f"infinite: {int(bad.sum())} of {bad.size}); refit or resample",
+                         file=str(path))
     return samples.reshape(-1, len(names))
 
 
