@@ -266,6 +266,24 @@ def test_kill_at_any_step_of_a_replace_leaves_the_old_or_the_new_report_whole(tm
     assert k > 5 and outcomes == {"old", "new"}  # killed before and after the swap
 
 
+def test_file_added_in_the_last_instant_before_the_swap_is_kept(tmp_path, monkeypatch,
+                                                                caplog):
+    rep = _earlier_report(tmp_path)
+    real = outdir._swap
+
+    def late_write(tmp, final):
+        (final / "late.txt").write_text("written while deepwell swapped")
+        return real(tmp, final)
+
+    monkeypatch.setattr(outdir, "_swap", late_write)
+    with staged_output(rep, replace=True) as tmp:
+        _fake_report(tmp, NEW_FILES)
+    kept = [p for p in tmp_path.iterdir() if p.name.startswith("rep.kept-")]
+    assert len(kept) == 1 and _snapshot(kept[0]) == {"late.txt": b"written while deepwell swapped"}
+    assert "kept" in caplog.text and _siblings(rep) == []
+    assert (rep / "keep.txt").read_text() == "the user's notes"
+
+
 def test_sigterm_while_writing_removes_the_temporary_folder(tmp_path):
     rep = _earlier_report(tmp_path)
     old = _snapshot(rep)

@@ -46,6 +46,7 @@ import shutil
 import signal
 import stat
 import tempfile
+import time
 from contextlib import contextmanager
 from pathlib import Path, PurePosixPath
 
@@ -60,6 +61,9 @@ log = logging.getLogger("deepwell")
 #: Name of the manifest file deepwell writes into every report folder.
 MANIFEST = ".deepwell-manifest.json"
 _TMP, _OLD = "deepwell-tmp", "deepwell-old"
+#: Marker of a staging folder that holds only what this run wrote (and links to files
+#: still in the final folder): removed just before the folder is put in place.
+_STAGING = ".deepwell-staging"
 _HEX = re.compile(r"[0-9a-f]{64}")
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]")
 _AT_FDCWD, _RENAME_EXCHANGE = -100, 2
@@ -299,8 +303,8 @@ def _recover(final):
             os.rename(path, final)
             log.warning("%s: restored the earlier report left aside by an interrupted run",
                         final)
-        elif kind == _TMP and _lstat(path / MANIFEST) is None:
-            shutil.rmtree(path, ignore_errors=True)  # a run killed while writing: all ours
+        elif kind == _TMP and _lstat(path / _STAGING) is not None:
+            shutil.rmtree(path, ignore_errors=True)  # killed before installing: all ours
         else:
             _clear_aside(path, final)
 
@@ -339,9 +343,14 @@ def _clear_aside(folder, final):
             os.rmdir(dirpath)
         except OSError:
             pass
-    if _lstat(folder) is not None:
-        log.warning("%s: kept; it holds files that are not in %s (they were added during the "
-                    "run); move them back by hand", folder, final)
+    if _lstat(folder) is not None:  # never removed blindly: give it a visible name
+        kept = final.parent / f"{final.name}.kept-{time.strftime('%Y%m%dT%H%M%S')}-{os.getpid()}"
+        try:
+            os.rename(folder, kept)
+        except OSError:
+            kept = folder
+        log.warning("%s: kept; it holds files of the earlier folder that are not in %s (added "
+                    "while the run went on?); move them back by hand", kept, final)
 
 
 # ----------------------------------------------------------------- public interface
@@ -385,6 +394,7 @@ def prepare_output(final_dir, replace=False):
         umask = os.umask(0)
         os.umask(umask)
         os.chmod(tmp, 0o777 & ~umask)
+        (tmp / _STAGING).write_text("deepwell staging folder\n", encoding="utf-8")
     except OSError as exc:
         raise OutputError(f"{final}: cannot create a folder beside it: {exc.strerror}") from None
     return tmp
@@ -424,7 +434,7 @@ def install_output(tmp_dir, final_dir, replace=False):
     aside = None
     try:
         _check_target(final, replace)  # the folder may have changed during the run
-        files = [f for f in _tree(tmp)[0] if f != MANIFEST]
+        files = [f for f in _tree(tmp)[0] if f not in (MANIFEST, _STAGING)]
         st = _lstat(final)
         empty = st is None or _is_empty(final)
         if not empty:
@@ -433,12 +443,14 @@ def install_output(tmp_dir, final_dir, replace=False):
             _check_unmodified(final, ours)
         _write_manifest(tmp, files)
         if empty:
+            _unlink_marker(tmp)
             with _signals_held():
                 os.replace(tmp, final)  # a missing or empty folder: one rename
             return files
         _carry_foreign(final, tmp, ours)
         if st is not None:
             shutil.copymode(final, tmp)
+        _unlink_marker(tmp)
         with _signals_held():
             aside = _swap(tmp, final)
     except OSError as exc:
@@ -451,6 +463,14 @@ def install_output(tmp_dir, final_dir, replace=False):
 
 
 # ----------------------------------------------------------------- the swap
+def _unlink_marker(tmp):
+    """From here on a killed run's folder is cleaned with care (it may hold the old one)."""
+    try:
+        os.unlink(tmp / _STAGING)
+    except FileNotFoundError:
+        pass
+
+
 def _carry_foreign(final, tmp, ours):
     """Link (or copy) every entry of ``final`` deepwell did not write into ``tmp``."""
     files, empty = _tree(final)
