@@ -589,3 +589,12 @@ def test_posterior_samples_with_nan_are_refused(positions_only, tmp_path, capsys
     assert _plan(report, "--samples", str(report / "samples.npz")) == 2
     msg = _one_line_error(capsys)
     assert "samples.npz" in msg and "not finite (NaN or infinite: 1 of" in msg
+
+
+def test_fit_state_that_is_a_link_is_not_followed(positions_only, tmp_path, capsys):
+    report = _copy_report(positions_only[1], tmp_path)
+    (report / "fit-state.json").unlink()
+    (report / "fit-state.json").symlink_to("/dev/zero")  # reading it would never end
+    assert _plan(report) == 2
+    msg = _one_line_error(capsys)
+    assert "fit-state.json" in msg and "not a regular file" in msg

@@ -10,6 +10,8 @@ commands (planning, sampling) start from a finished fit without refitting.
 
 import json
 import math
+import os
+import stat
 from pathlib import Path
 
 import numpy as np
@@ -25,6 +27,8 @@ __all__ = ["STATE_FILE", "state_dict", "write_state", "load_fit"]
 
 STATE_FILE = "fit-state.json"
 STATE_FORMAT = "deepwell fit state 1"
+#: Largest fit-state.json read back (a fit of a few hundred parameters is ~10 MB).
+MAX_STATE_BYTES = 64 * 2**20
 
 
 def state_dict(result):
@@ -132,6 +136,17 @@ def load_fit(report_dir, scenario=None):
         its schema), or the input tables changed, were added or removed.
     """
     path = Path(report_dir) / STATE_FILE
+    try:
+        st = os.lstat(path)
+    except OSError as exc:
+        raise InputError(f"not a deepwell report with a saved fit ({exc.strerror})",
+                         file=str(path)) from None
+    if not stat.S_ISREG(st.st_mode):
+        raise InputError("not a regular file (a link or a device?); links in a report folder "
+                         "are never followed", file=str(path))
+    if st.st_size > MAX_STATE_BYTES:
+        raise InputError(f"larger than any fit state ({st.st_size} bytes > "
+                         f"{MAX_STATE_BYTES})", file=str(path))
     try:
         state = json.loads(path.read_text(encoding="utf-8"))
     except (OSError, ValueError) as exc:
