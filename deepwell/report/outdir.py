@@ -67,6 +67,7 @@ _STAGING = ".deepwell-staging"
 _HEX = re.compile(r"[0-9a-f]{64}")
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]")
 _AT_FDCWD, _RENAME_EXCHANGE = -100, 2
+_MAX_MANIFEST_BYTES = 16 * 2**20  # a report of many thousand files has a manifest of ~1 MB
 
 
 # ----------------------------------------------------------------- small helpers
@@ -137,7 +138,7 @@ def read_manifest(final_dir):
     if st is None:
         return None
     try:
-        if not stat.S_ISREG(st.st_mode):
+        if not stat.S_ISREG(st.st_mode) or st.st_size > _MAX_MANIFEST_BYTES:
             raise TypeError
         data = json.loads(path.read_text(encoding="utf-8"))
         files = data["files"]
