@@ -12,8 +12,8 @@ import os
 import re
 import signal
 import sys
-import threading
 import warnings
+from contextlib import contextmanager
 
 from threadpoolctl import threadpool_limits
 
@@ -44,6 +44,34 @@ class _Parser(argparse.ArgumentParser):
         super().error(message + ("; " + "; ".join(hints) if hints else ""))
 
 
+class Terminated(BaseException):
+    """Raised in the main process by SIGTERM, so that temporary folders are cleaned up."""
+
+
+@contextmanager
+def sigterm_cleans_up():
+    """While active, SIGTERM raises :class:`Terminated` in this process (forked workers,
+    which inherit the handler, still die at once)."""
+    main_pid = os.getpid()
+
+    def handler(signum, frame):
+        if os.getpid() != main_pid:
+            signal.signal(signal.SIGTERM, signal.SIG_DFL)
+            os.kill(os.getpid(), signal.SIGTERM)
+            return
+        raise Terminated
+
+    try:
+        old = signal.signal(signal.SIGTERM, handler)
+    except ValueError:  # not the main thread: leave the signal alone
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, old)
+
+
 def _parser():
     parser = _Parser(
         prog="deepwell",
@@ -57,14 +85,6 @@ def _parser():
     add_calibrate_parser(sub)
     add_demo_parser(sub)
     return parser
-
-
-class Terminated(BaseException):
-    """SIGTERM, raised where the program is so that every cleanup runs."""
-
-
-def _terminated(signum, frame):
-    raise Terminated()
 
 
 def main(argv=None):
@@ -84,24 +104,22 @@ def main(argv=None):
     shown = warnings.formatwarning
     warnings.formatwarning = lambda message, category, *rest, **kw: \
         f"{category.__name__}: {message}"  # one line, no source line
-    main_thread = threading.current_thread() is threading.main_thread()
-    previous = signal.signal(signal.SIGTERM, _terminated) if main_thread else None
     try:
-        with warnings.catch_warnings(), threadpool_limits(limits=1, user_api="blas"):
+        with warnings.catch_warnings(), threadpool_limits(limits=1, user_api="blas"), \
+                sigterm_cleans_up():
             warnings.simplefilter("default")
             return args.func(args)
     except DeepwellError as exc:
         print(f"deepwell: error: {exc}", file=sys.stderr)
         return 2
-    except Terminated:
-        print("deepwell: terminated; nothing was written", file=sys.stderr)
-        return 143
     except KeyboardInterrupt:
         print("deepwell: interrupted; nothing was written", file=sys.stderr)
         return 130
+    except Terminated:
+        print("deepwell: terminated (SIGTERM); temporary folders removed",
+              file=sys.stderr)
+        return 143
     finally:
-        if main_thread:
-            signal.signal(signal.SIGTERM, previous)
         logging.captureWarnings(False)
         warnings.formatwarning = shown
 

@@ -7,7 +7,16 @@ from deepwell.core.errors import InputError
 from deepwell.report.outdir import staged_output
 from deepwell.report.plan import write_plan
 from deepwell.results.saved_fit import load_fit
-from deepwell.tools.plan import SAMPLES_FILE, PlanSettings, load_samples, make_plan, parse_months
+from deepwell.tables.observations import EPOCH_RANGE
+from deepwell.tools.plan import (
+    LIMITS,
+    SAMPLES_FILE,
+    PlanSettings,
+    check_plan_settings,
+    load_samples,
+    make_plan,
+    parse_months,
+)
 
 from .options import common
 
@@ -58,27 +67,32 @@ def add_plan_parser(subparsers):
 def _read_epochs(path):
     vals = []
     try:
-        lines = open(path, encoding="utf-8").read().splitlines()
-    except OSError as exc:
-        raise InputError(f"cannot read: {exc.strerror}", file=path) from None
+        with open(path, encoding="utf-8") as fh:
+            lines = fh.read().splitlines()
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read: {getattr(exc, 'strerror', None) or exc}",
+                         file=path) from None
+    lo, hi = EPOCH_RANGE
     for i, line in enumerate(lines, 1):
         text = line.split("#")[0].strip()
         if text:
             try:
-                vals.append(float(text))
+                value = float(text)
             except ValueError:
                 raise InputError(f"not a Julian year: {text!r}", file=path, row=i) from None
+            if not lo <= value <= hi:  # also NaN
+                raise InputError(f"epoch {text} is outside the range {lo:g} to {hi:g} "
+                                 "(Julian yr)", file=path, row=i)
+            vals.append(value)
+            if len(vals) > LIMITS["candidates"]:
+                raise InputError(f"more than {LIMITS['candidates']} candidate epochs",
+                                 file=path, row=i)
     return tuple(vals)
 
 
 def run_plan(args):
     """Run ``deepwell plan``: load the fit, plan, write ``plan/`` inside the report."""
 
-    result = load_fit(args.report, scenario=args.scenario)
-    sample_path = args.samples or (Path(args.report) / SAMPLES_FILE)
-    samples = None
-    if args.samples or Path(sample_path).is_file():
-        samples = load_samples(sample_path, result)
     settings = PlanSettings(
         start=args.start, end=args.end, step=args.step, n_draws=args.draws, seed=args.seed,
         months=parse_months(args.months) if args.months else None,
@@ -86,6 +100,12 @@ def run_plan(args):
         epochs=_read_epochs(args.epochs_file) if args.epochs_file else None,
         astrometry_error=args.astrometry_error, velocity_error=args.velocity_error,
         relative_to=args.relative_to, resolution=args.resolution)
+    check_plan_settings(settings)  # before the fit is rebuilt
+    result = load_fit(args.report, scenario=args.scenario)
+    sample_path = args.samples or (Path(args.report) / SAMPLES_FILE)
+    samples = None
+    if args.samples or Path(sample_path).is_file():
+        samples = load_samples(sample_path, result)
     log.info("planning %g to %g from %s", args.start, args.end,
              "posterior samples" if samples is not None else "the fit's covariance")
     plan = make_plan(result, settings, samples)

@@ -26,6 +26,8 @@ from astropy.table import Table
 from deepwell.core.units import unit_of
 from deepwell.report.figures.style import MARKERS, PALETTE, STYLE, new_figure, save_figure
 
+from .tables import md_text
+
 __all__ = ["write_plan", "predictions_figure", "gain_figure", "plan_markdown"]
 
 def _table(frame, description):
@@ -108,7 +110,8 @@ def plan_markdown(plan, result):
         return f"{t:.3f}" + (" (in span)" if s.start <= t <= s.end else "")
 
     for _, p in plan.passages.iterrows():
-        lines.append(f"| {p['star']} | {when(p['pericentre'])} | {p['pericentre_sigma']:.3f} | "
+        lines.append(f"| {md_text(p['star'])} | {when(p['pericentre'])} | "
+                     f"{p['pericentre_sigma']:.3f} | "
                      f"{when(p['apocentre'])} | {p['apocentre_sigma']:.3f} | "
                      f"{p['period']:.3f} |")
     lines.append("")
@@ -126,7 +129,8 @@ def plan_markdown(plan, result):
         lines += ["| stars | from | to | closest | min. sep. (mas) | chance closer |",
                   "|---|---|---|---|---|---|"]
         for _, a in plan.approaches.iterrows():
-            lines.append(f"| {a['star_a']} / {a['star_b']} | {a['start']:.2f} | {a['end']:.2f}"
+            lines.append(f"| {md_text(a['star_a'])} / {md_text(a['star_b'])} | "
+                         f"{a['start']:.2f} | {a['end']:.2f}"
                          f" | {a['closest_epoch']:.2f} | {a['min_separation']:.1f} | "
                          f"{100 * a['max_probability']:.0f}% |")
     else:

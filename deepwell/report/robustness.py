@@ -14,6 +14,8 @@ from deepwell.core.jsonsafe import json_safe
 from deepwell.core.units import UNITS, unit_of
 from deepwell.report.figures.jackknife import plot_jackknife
 
+from .tables import md_text
+
 __all__ = ["robustness_summary", "write_robustness_tables", "robustness_markdown",
            "write_robustness_figures"]
 
@@ -101,7 +103,7 @@ def robustness_markdown(analyses):
             term = f"jitter {_fmt(r['jitter'], r.get('jitter_err'))}"
         offs = ", ".join(f"{k} = {_fmt(r[k], r.get(k + '_err'))} {UNITS[k]}"
                          for k in ("dx", "dy", "dvx", "dvy", "dvz") if k in r) or "–"
-        lines.append(f"| {r['dataset']} | {r['kind']} | {r['n_points']} | "
+        lines.append(f"| {md_text(r['dataset'])} | {r['kind']} | {r['n_points']} | "
                      f"{r['chi2_stated']:.1f} / {r['n_numbers']} | {r['chi2']:.1f} | "
                      f"{'yes' if r['reference'] else ''} | {term} | {offs} |")
     lines.append("")
@@ -118,7 +120,8 @@ def robustness_markdown(analyses):
                   "| outlier probability |", "|---|---|---|---|---|---|---|"]
         for r in out:
             p = r.get("p_outlier")
-            lines.append(f"| {r['star']} | {r['dataset']} | {r['file']} | {r['line']} | "
+            lines.append(f"| {md_text(r['star'])} | {md_text(r['dataset'])} | "
+                         f"{md_text(r['file'])} | {r['line']} | "
                          f"{r['epoch']:.4f} | {r['max_sigma']:.1f} | "
                          f"{'–' if p is None else f'{p:.2f}'} |")
         lines.append("")
@@ -131,7 +134,8 @@ def robustness_markdown(analyses):
         lines.append("|---|---|---|---|")
         for r in d["rows"]:
             name = r.get("left_out", r.get("unit", ""))
-            lines.append(f"| {name} | {_fmt(r.get('d_mass'))} | {_fmt(r.get('d_distance'))} | "
+            lines.append(f"| {md_text(name)} | {_fmt(r.get('d_mass'))} | "
+                         f"{_fmt(r.get('d_distance'))} | "
                          f"{r.get('note') or ''} |")
         js, ss = d["jackknife_sigma"], d["statistical_sigma"]
         lines.append("")

@@ -15,7 +15,7 @@ from deepwell.results.compactness import compactness_from_samples
 from deepwell.results.effect_sizes import DETECTABLE_RULE
 
 from .analysis_tables import posterior_summary
-from .tables import OSCULATING_STATEMENT, format_asymmetric, format_value_error
+from .tables import OSCULATING_STATEMENT, format_asymmetric, format_value_error, md_text
 
 __all__ = ["OSCULATING_STATEMENT", "effects_block", "md_effects",
            "extended_block", "md_extended", "enclosed_block", "md_enclosed",
@@ -101,7 +101,7 @@ def md_effects(result, sizes, figures):
                                 ("precession", "detectable_precession"),
                                 ("Rømer", "detectable_romer")) if d[key]]
         vel = d["median_velocity_error_kms"]
-        out.append(f"| {s} | {_yes(d['integrated'])} | {d['redshift_excess_kms']:.3g} | "
+        out.append(f"| {md_text(s)} | {_yes(d['integrated'])} | {d['redshift_excess_kms']:.3g} | "
                    f"{'–' if not math.isfinite(vel) else f'{vel:.2g}'} | "
                    f"{d['precession_arcmin']:.3g} | {d['precession_mas']:.2g} | "
                    f"{d['min_position_error_mas']:.2g} | {d['romer_range_days']:.3g} | "
@@ -109,7 +109,7 @@ def md_effects(result, sizes, figures):
     missed = _unmodelled(m, sizes)
     if missed:
         out += ["", "**The data could detect effects this fit leaves out:** "
-                + "; ".join(f"{s}: {', '.join(k)}" for s, k in missed.items())
+                + "; ".join(f"{md_text(s)}: {', '.join(k)}" for s, k in missed.items())
                 + ". The fitted elements, mass and distance may be biased by them; refit with "
                 "these effects switched on."]
     integ = [s for s in m.stars if sizes[s]["integrated"]]
@@ -121,7 +121,7 @@ def md_effects(result, sizes, figures):
                 "| fitted period (yr) | integrated period (yr) |", "|---|---|---|---|---|---|"]
         for s in integ:
             d = sizes[s]
-            out.append(f"| {s} | {d['osculating_epoch']:.4f} | "
+            out.append(f"| {md_text(s)} | {d['osculating_epoch']:.4f} | "
                        f"{result.value(f'{s}:t_peri'):.4f} | {d['pericentre_observed']:.4f} | "
                        f"{result.value(f'{s}:period'):.4f} | {d['integrated_period']:.4f} |")
     shown = [k for k in figures if k.startswith(("redshift_", "precession_"))]
@@ -221,7 +221,7 @@ def md_enclosed(profile, figures):
            "", "| Star | mass (M☉) | pericentre (au) | apocentre (au) | coverage | note |",
            "|---|---|---|---|---|---|"]
     for s in profile.stars:
-        out.append(f"| {s.star} | {s.mass:.4g} ± {s.mass_sigma:.2g} | {s.r_peri_au:.4g} | "
+        out.append(f"| {md_text(s.star)} | {s.mass:.4g} ± {s.mass_sigma:.2g} | {s.r_peri_au:.4g} | "
                    f"{s.r_apo_au:.4g} | {s.coverage:.2f} | "
                    f"{'poorly constrained: ' + s.reason if s.poorly_constrained else ''} |")
     out += ["", "Caveats:", "", *[f"- {n}" for n in profile.notes], ""]
@@ -319,8 +319,8 @@ def md_posterior(result, posterior, comp, figures):
         out.append(f"- {n}: {_fmt_post(posterior, n)}{' ' + unit if unit else ''}")
     out += ["", "| Star | P (yr) | a (mas) | e | r_peri (au) |", "|---|---|---|---|---|"]
     for s in result.stars:
-        out.append(f"| {s} | " + " | ".join(_fmt_post(posterior, f"{s}:{q}")
-                                           for q in ("period", "a", "e", "r_peri")) + " |")
+        out.append(f"| {md_text(s)} | " + " | ".join(_fmt_post(posterior, f"{s}:{q}")
+                                                    for q in ("period", "a", "e", "r_peri")) + " |")
     out += ["", "Priors implied by the sampled parameters (flat in the sampled quantity unless "
             "stated):", "", *([f"- {p}" for p in posterior.implied_priors] or ["- none listed"])]
     if posterior.marginalised:
@@ -329,7 +329,7 @@ def md_posterior(result, posterior, comp, figures):
     if comp is not None:
         r, x = comp["r_peri"], comp["r_peri_in_rs"]
         dens = comp["mean_density_lower_limit"]
-        out += ["", f"Compactness over the posterior (pericentre of star {comp['star']}): "
+        out += ["", f"Compactness over the posterior (pericentre of star {md_text(comp['star'])}): "
                 f"r_peri = {r['median']:.4g} au (16–84%: {r['p16']:.4g}–{r['p84']:.4g} au), "
                 f"{x['median']:.4g} Schwarzschild radii ({x['p16']:.4g}–{x['p84']:.4g}); mean "
                 f"density at least {dens['median']:.3g} M☉/pc³ ({dens['p16']:.3g}–"

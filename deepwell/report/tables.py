@@ -226,11 +226,36 @@ def _meta(result, title):
 # ------------------------------------------------------------------ LaTeX
 _TEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
                 "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
-                "^": r"\textasciicircum{}"}
+                "^": r"\textasciicircum{}", "<": r"\textless{}", ">": r"\textgreater{}",
+                "|": r"\textbar{}"}
+
+
+#: Characters that would start markdown markup (or break a table) inside a name.
+_MD_SPECIAL = set("\\`*_[]<>|#!~")
+
+
+def md_text(text):
+    """``text`` with markdown markup characters escaped (names in report.md, plan.md).
+
+    Control characters are refused where names are read
+    (:mod:`deepwell.tables.observations`); any left are shown as ``\\uXXXX`` escapes so
+    that no line break can reach the markdown.
+    """
+    out = []
+    for c in str(text):
+        if c in _MD_SPECIAL:
+            out.append("\\" + c)
+        elif ord(c) < 32 or 127 <= ord(c) < 160 or c in "\u2028\u2029":
+            out.append(f"\\u{ord(c):04x}")
+        else:
+            out.append(c)
+    return "".join(out)
 
 
 def _tex_escape(text):
-    return "".join(_TEX_SPECIAL.get(c, c) for c in str(text))
+    """``text`` safe inside LaTeX: specials escaped, control characters made spaces."""
+    return "".join(_TEX_SPECIAL.get(c, " " if ord(c) < 32 or 127 <= ord(c) < 160 else c)
+                   for c in str(text))
 
 
 def _pm(value, error):

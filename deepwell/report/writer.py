@@ -62,7 +62,7 @@ from .sections import (
     posterior_parameters,
     sampling_block,
 )
-from .tables import format_value_error, star_numbers, write_tables
+from .tables import format_value_error, md_text, star_numbers, write_tables
 
 __all__ = ["report_notes", "compactness_choice", "summary_dict", "write_summary",
            "markdown_report", "write_report", "save_report"]
@@ -309,14 +309,14 @@ def _md_star_tables(result, numbers):
     lines = ["| Star | P (yr) | a (mas) | e | i (deg) | Ω (deg) | ω (deg) | t_peri (yr) |",
              "|---|---|---|---|---|---|---|---|"]
     for s in result.stars:
-        lines.append(f"| {s} | " + " | ".join(_md_pm(result, f"{s}:{q}") for q in
+        lines.append(f"| {md_text(s)} | " + " | ".join(_md_pm(result, f"{s}:{q}") for q in
                      ("period", "a", "e", "inc", "node", "peri_arg", "t_peri")) + " |")
     lines += ["", "| Star | r_peri (au) | r_peri (R_s) | v_peri (km/s) | coverage | "
               "positions | velocities | reduced χ² |", "|---|---|---|---|---|---|---|---|"]
     for s in result.stars:
         n = numbers[s]
         lines.append(
-            f"| {s} | {_md_pm(result, f'{s}:r_peri')} | "
+            f"| {md_text(s)} | {_md_pm(result, f'{s}:r_peri')} | "
             f"{format_value_error(n['r_peri_rs'], n['r_peri_rs_err'], 'text')} | "
             f"{format_value_error(n['v_peri_kms'], n['v_peri_kms_err'], 'text')} | "
             f"{n['coverage']:.2f} | {n['n_positions']} | {n['n_velocities']} | "
@@ -382,7 +382,7 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
         "(both wrapped to [0°, 360°)); coverage is the fraction of the orbit spanned by the "
         "position epochs.", "",
         "## Warnings and notes", "",
-        *([f"- {n}" for n in notes] or ["- None."]), "",
+        *([f"- {md_text(n)}" for n in notes] or ["- None."]), "",
         "## Model assumptions", "", *[f"- {a}" for a in _assumptions(result)], "",
         "## How compact is the mass?", "",
     ]
@@ -394,7 +394,7 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
     else:
         err = data["r_peri_sigma"]["value"]
         out.append(f"This uses the smallest well-constrained pericentre, that of star "
-                   f"{data['star']} ({format_value_error(rep.r_peri_au, err, 'text')} au; "
+                   f"{md_text(data['star'])} ({format_value_error(rep.r_peri_au, err, 'text')} au; "
                    f"phase coverage ≥ {POOR_COVERAGE}, relative error < "
                    f"{GOOD_RPERI_ERROR:.0%}), and the best-fit mass; their errors are not "
                    "propagated into the numbers below. " + compactness_paragraph(rep))
@@ -424,7 +424,8 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
         png = next(p for p in fig["files"] if p.suffix == ".png")
         pdf = [p for p in fig["files"] if p.suffix == ".pdf"]
         link = f" ([PDF](figures/{pdf[0].name}))" if pdf else ""
-        out += [f"![{stem}](figures/{png.name})", "", f"*{fig['caption']}*{link}", ""]
+        out += [f"![{md_text(stem)}](figures/{png.name})", "", f"*{md_text(fig['caption'])}*{link}",
+                ""]
     out += ["## Files", "",
             "- `summary.json`: all numbers with units, settings, input checksums, notes.",
             "- `tables/shared.ecsv`, `tables/stars.ecsv`: tables with units (astropy ECSV).",

@@ -8,6 +8,7 @@ mas, velocities in km/s, epochs as Julian epochs in TT; an ISO date/time epoch
 is read as UTC and converted to TT (physics.md §1).
 """
 
+import csv
 import hashlib
 import io
 import re
@@ -27,7 +28,19 @@ from deepwell.core.errors import InputError
 from deepwell.core.units import UNITS
 
 __all__ = ["DataWarning", "Observations", "read_positions", "read_velocities",
-           "read_observations"]
+           "read_observations", "EPOCH_RANGE", "control_characters"]
+
+#: Accepted epochs, Julian years TT: from the first photographic plates to a few
+#: centuries ahead. Wider values are typing errors (or hostile), and would make the
+#: orbit integrations span absurd times.
+EPOCH_RANGE = (1800.0, 2300.0)
+#: Control characters (C0, DEL, C1) and the Unicode line and paragraph separators.
+_CONTROL = re.compile("[\x00-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def control_characters(text):
+    """Whether ``text`` holds a control character (newline, tab, escape, ...)."""
+    return _CONTROL.search(str(text)) is not None
 
 _REQUIRED = {"positions": ("star", "epoch", "ra", "dec", "ra_err", "dec_err"),
              "velocities": ("star", "epoch", "vr", "vr_err")}
@@ -101,12 +114,29 @@ def _csv_cells(text, file):
         if not found:
             raise InputError(f"cannot split into columns: {exc}", file=file) from None
         want, line, saw = map(int, found.groups())
+        starts = _record_lines(body, line)
         raise InputError(f"{saw} cells but the header has {want}", file=file,
-                         row=line + skip) from None
+                         row=int(starts[line - 1]) + skip) from None
     df = df.fillna("").apply(lambda col: col.str.strip())
     used = np.flatnonzero((df.iloc[1:] != "").any(axis=1).to_numpy()) + 1  # skip blank lines
     cells = df.iloc[used].reset_index(drop=True)
-    return cells, used + 1 + skip, list(df.iloc[0]), skip + 1
+    starts = _record_lines(body, len(df))
+    return cells, starts[used] + skip, list(df.iloc[0]), skip + 1
+
+
+def _record_lines(body, n_records):
+    """Physical line (1-based) where each CSV record starts (quoted newlines counted)."""
+    reader = csv.reader(io.StringIO(body), skipinitialspace=True)
+    starts, prev = [], 0
+    try:
+        for _ in reader:
+            starts.append(prev + 1)
+            prev = reader.line_num
+    except csv.Error:
+        starts = []
+    if len(starts) != n_records:  # the two readers disagree: count records instead
+        return np.arange(1, n_records + 1)
+    return np.array(starts, dtype=int)
 
 
 def _ecsv_cells(text, file):
@@ -208,7 +238,12 @@ class _Table:
             values[iso] = _utc_to_jyear(raw[iso].str.replace(" ", "T", n=1).to_numpy(str))
             self.check(iso & np.isnan(values), "epoch",
                        lambda v: f"not a number or ISO date/time: {v!r}")
-        return self.numbers("epoch", values)
+        values = self.numbers("epoch", values)
+        lo, hi = EPOCH_RANGE
+        self.check((values < lo) | (values > hi), "epoch",
+                   lambda v: f"epoch {v!r} is outside the accepted range {lo:g} to {hi:g} "
+                             "(Julian years, or an ISO date in that range)")
+        return values
 
     def text(self, key, default):
         """Column ``key`` as stripped strings, ``default`` where absent or empty."""
@@ -256,6 +291,10 @@ def _validate(t, kind):
     """Check every column of ``t`` and build the result frame."""
     out = {"star": t.text("star", "")}
     t.check(out["star"] == "", "star", lambda v: "empty star name")
+    for key in ("star", "dataset"):
+        if key in t.cells:
+            t.check([control_characters(v) for v in t.text(key, "")], key,
+                    lambda v: f"the name holds a control character (newline, tab...): {v!r}")
     out["epoch"] = t.epochs()
     for key in _REQUIRED[kind][2:]:
         out[key] = t.numbers(key)

@@ -24,6 +24,7 @@ from deepwell.core.jsonsafe import json_safe
 __all__ = ["journal_path", "TrialJournal"]
 
 _KEY = "deepwell_calibration_journal"
+_STATUSES = ("ok", "not converged", "failed")
 
 
 def journal_path(out):
@@ -33,6 +34,21 @@ def journal_path(out):
 
 def _restore(record):
     return {k: (math.nan if v is None else v) for k, v in record.items()}
+
+
+def _check_record(rec, path, line):
+    """The trial index of a journal record; refuse a record that is not one."""
+    if not isinstance(rec, dict):
+        raise DeepwellError(f"{path}: line {line}: a trial record must be a JSON object, "
+                            f"not a {type(rec).__name__}; the journal is damaged")
+    trial = rec.get("trial")
+    if not isinstance(trial, int) or isinstance(trial, bool) or trial < 0:
+        raise DeepwellError(f"{path}: line {line}: the record has no trial number "
+                            "(key 'trial', a whole number >= 0); the journal is damaged")
+    if rec.get("status") not in _STATUSES:
+        raise DeepwellError(f"{path}: line {line}: the record's 'status' is not one of "
+                            f"{', '.join(_STATUSES)}; the journal is damaged")
+    return trial
 
 
 class TrialJournal:
@@ -63,24 +79,32 @@ class TrialJournal:
             self._append(self.header)
 
     def _read(self):
-        lines = self.path.read_text().splitlines()
+        try:
+            lines = self.path.read_text(encoding="utf-8").splitlines()
+        except (OSError, UnicodeDecodeError) as exc:
+            raise DeepwellError(f"{self.path}: cannot read the calibration journal "
+                                f"({exc})") from None
         try:
             first = json.loads(lines[0]) if lines else {}
         except json.JSONDecodeError:
             first = {}
-        if first.get(_KEY) != 1:
+        if not isinstance(first, dict) or first.get(_KEY) != 1:
             raise DeepwellError(f"{self.path}: line 1: not a deepwell calibration journal")
         for key, value in self.header.items():
             if first.get(key) != value:
                 raise DeepwellError(f"{self.path}: line 1: the journal is for {key} = "
                                     f"{first.get(key)!r}, this run has {value!r}; use another "
                                     "--out or delete the journal")
-        for line in lines[1:]:
+        for i, line in enumerate(lines[1:], 2):
             try:
                 rec = json.loads(line)
-            except json.JSONDecodeError:  # the line being written when a run was killed
-                continue
-            self.done[int(rec["trial"])] = _restore(rec)
+            except json.JSONDecodeError:
+                if i == len(lines):  # the line being written when a run was killed
+                    continue
+                raise DeepwellError(f"{self.path}: line {i}: not a JSON record; the journal "
+                                    "is damaged (delete it to start over)") from None
+            trial = _check_record(rec, self.path, i)
+            self.done[trial] = _restore(rec)
 
     def _append(self, obj):
         with open(self.path, "a") as fh:

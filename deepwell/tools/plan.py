@@ -39,16 +39,23 @@ from deepwell.core.errors import InputError
 from deepwell.fit.jacobian import default_steps, numerical_jacobian
 from deepwell.model.epochs import observations_at
 from deepwell.results.effect_sizes import pericentre_epochs
+from deepwell.tables.observations import EPOCH_RANGE
 
 __all__ = ["PlanSettings", "Plan", "make_plan", "synthetic_model", "draw_vectors",
            "predict_grid", "position_ellipse", "next_passages", "information_gain",
            "load_samples", "close_approaches", "candidate_epochs", "fisher_forecast",
-           "parse_months", "TARGETS", "SAMPLES_FILE"]
+           "parse_months", "check_plan_settings", "TARGETS", "SAMPLES_FILE", "LIMITS"]
 
 #: Quantities whose forecast errors are ranked.
 TARGETS = ("mass", "distance", "f", "f_sp")
 #: Optional file of posterior samples in a report folder (see module docstring).
 SAMPLES_FILE = "posterior-samples.npz"
+#: Bounds of what can be planned (refused beyond them, naming the option): epochs in
+#: the accepted range of the tables (EPOCH_RANGE), a span of at most ``span`` years,
+#: at most ``grid`` prediction epochs, ``draws`` parameter draws, ``per_season``
+#: candidates per season and ``candidates`` candidate epochs in all.  Beyond them the
+#: work grows without use to an observer (and a typing error would run for hours).
+LIMITS = {"span": 200.0, "grid": 5000, "draws": 20000, "per_season": 12, "candidates": 2000}
 #: Percentiles of the bands: 95% (2.5, 97.5) and 68% (16, 84) central intervals.
 BAND_PERCENTILES = (2.5, 16.0, 50.0, 84.0, 97.5)
 #: A pair counts as confused when this fraction of draws is closer than the resolution.
@@ -530,6 +537,43 @@ def _default_errors(model):
     return pos, vel
 
 
+def check_plan_settings(s):
+    """Refuse a :class:`PlanSettings` outside :data:`LIMITS` (one line naming the option)."""
+    def refuse(option, message):
+        raise InputError(message, column=option)
+
+    lo, hi = EPOCH_RANGE
+    for option, value in (("--from", s.start), ("--to", s.end)):
+        if not (np.isfinite(value) and lo <= value <= hi):
+            refuse(option, f"epoch {value!r} is outside the range {lo:g} to {hi:g} (Julian yr)")
+    if not s.end > s.start:
+        refuse("--to", f"the end epoch {s.end} must come after the start {s.start}")
+    if s.end - s.start > LIMITS["span"]:
+        refuse("--to", f"a plan spans at most {LIMITS['span']:g} years; {s.start:g} to "
+                       f"{s.end:g} is {s.end - s.start:g}")
+    if s.step is not None:
+        if not (np.isfinite(s.step) and s.step > 0):
+            refuse("--step", f"the step must be a positive number of years, not {s.step!r}")
+        if (s.end - s.start) / s.step + 1 > LIMITS["grid"]:
+            refuse("--step", f"at most {LIMITS['grid']} prediction epochs; step {s.step:g} "
+                             f"over {s.end - s.start:g} years gives more")
+    for option, value, top in (("--draws", s.n_draws, LIMITS["draws"]),
+                               ("--per-season", s.per_season, LIMITS["per_season"])):
+        if not 1 <= value <= top:
+            refuse(option, f"must be 1 to {top}, not {value}")
+    if s.epochs is not None:
+        if len(s.epochs) > LIMITS["candidates"]:
+            refuse("--epochs-file", f"at most {LIMITS['candidates']} candidate epochs, "
+                                    f"not {len(s.epochs)}")
+        if not np.all(np.isfinite(np.asarray(s.epochs, float))):
+            refuse("--epochs-file", "every candidate epoch must be a finite number")
+    for option, value in (("--astrometry-error", s.astrometry_error),
+                          ("--velocity-error", s.velocity_error),
+                          ("--resolution", s.resolution)):
+        if value is not None and not (np.isfinite(value) and value > 0):
+            refuse(option, f"must be a positive number, not {value!r}")
+
+
 def make_plan(result, settings, samples=None):
     """Predictions, passages, close approaches and the forecast of a fit.
 
@@ -545,8 +589,7 @@ def make_plan(result, settings, samples=None):
     Plan
     """
     s = settings
-    if not s.end > s.start:
-        raise InputError(f"the end epoch {s.end} must come after the start {s.start}")
+    check_plan_settings(s)
     pos_err, vel_err = _default_errors(result.model)
     notes = []
     if s.astrometry_error is None or s.velocity_error is None:
@@ -591,6 +634,14 @@ def load_samples(path, result):
         raise InputError(f"not a file of posterior samples ({exc})", file=str(path)) from None
     if names != result.model.layout.names():
         raise InputError("the samples' parameters do not match the fit", file=str(path))
+    if samples.size == 0 or samples.size % len(names):
+        raise InputError(f"'internal_samples' does not hold rows of {len(names)} parameters",
+                         file=str(path))
+    bad = ~np.isfinite(samples)
+    if bad.any():
+        raise InputError(f"'internal_samples' holds values that are not finite (NaN or "
+                         f"infinite: {int(bad.sum())} of {bad.size}); refit or resample",
+                         file=str(path))
     return samples.reshape(-1, len(names))
 
 
