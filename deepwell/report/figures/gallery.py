@@ -4,6 +4,8 @@ from pathlib import Path
 
 import matplotlib
 
+from deepwell.core.errors import OutputError
+
 from .effects import effect_figure_jobs
 from .orbits import figure_name, sky_figure, star_figure
 from .posterior import corner_figure, mass_distance_figure, predictive_draws
@@ -63,6 +65,10 @@ def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=
         jobs += effect_figure_jobs(result, effect_sizes)
     if posterior is not None:
         jobs += _posterior_jobs(result, posterior)
+    stems = [stem.casefold() for stem, _, _ in jobs]
+    if len(set(stems)) != len(stems):  # file_stem makes this (all but) impossible
+        twice = next(s for s in stems if stems.count(s) > 1)
+        raise OutputError(f"{folder}: two figures would share the file name '{twice}'")
     with matplotlib.rc_context(STYLE):
         for stem, build, caption in jobs:
             out[stem] = {"caption": caption, "files": save_figure(build(), folder, stem, formats)}

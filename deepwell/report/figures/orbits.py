@@ -17,15 +17,15 @@ from deepwell.model.kernels.orbit import keplerian_track
 from deepwell.model.quality import POOR_COVERAGE
 
 from .posterior import sky_draw_tracks, velocity_band
-from .style import MASS_MARKER, MODEL_COLOUR, PALETTE, STYLE, new_figure, style_of, unique_names
+from .style import (MASS_MARKER, MODEL_COLOUR, PALETTE, STYLE, file_stem, new_figure, style_of,
+                    unique_names)
 
 __all__ = ["mass_relative_positions", "sky_figure", "star_figure", "figure_name"]
 
 
 def figure_name(star):
-    """File stem of a star's figure: ``star_<name>`` with unsafe characters replaced."""
-    safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in str(star))
-    return f"star_{safe}"
+    """File stem of a star's figure: ``star_<name>``, made safe by :func:`.style.file_stem`."""
+    return file_stem("star", star)
 
 
 def mass_relative_positions(result):
