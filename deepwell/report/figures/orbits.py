@@ -17,8 +17,16 @@ from deepwell.model.kernels.orbit import keplerian_track
 from deepwell.model.quality import POOR_COVERAGE
 
 from .posterior import sky_draw_tracks, velocity_band
-from .style import (MASS_MARKER, MODEL_COLOUR, PALETTE, STYLE, file_stem, new_figure, style_of,
-                    unique_names)
+from .style import (
+    MASS_MARKER,
+    MODEL_COLOUR,
+    PALETTE,
+    STYLE,
+    file_stem,
+    new_figure,
+    style_of,
+    unique_names,
+)
 
 __all__ = ["mass_relative_positions", "sky_figure", "star_figure", "figure_name"]
 
