@@ -53,8 +53,12 @@ def main(argv=None):
     parser = _parser()
     args = parser.parse_args(argv)
     args.argv = list(sys.argv[1:] if argv is None else argv)
+    # Our own messages at INFO (WARNING with -q); other libraries' chatter (such as
+    # matplotlib's "generated new fontManager" on a first run) only from WARNING up.
     logging.basicConfig(format="deepwell: %(message)s", stream=sys.stderr, force=True,
-                        level=logging.WARNING if getattr(args, "quiet", False) else logging.INFO)
+                        level=logging.WARNING)
+    level_before = log.level
+    log.setLevel(logging.WARNING if getattr(args, "quiet", False) else logging.INFO)
     logging.captureWarnings(True)
     shown = warnings.formatwarning
     warnings.formatwarning = lambda message, category, *rest, **kw: \
@@ -70,6 +74,7 @@ def main(argv=None):
         print("deepwell: interrupted; nothing was written", file=sys.stderr)
         return 130
     finally:
+        log.setLevel(level_before)
         logging.captureWarnings(False)
         warnings.formatwarning = shown
 

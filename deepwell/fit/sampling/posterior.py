@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from deepwell.core.errors import DeepwellError
+from deepwell.core.text import plural
 from deepwell.core.units import UNITS
 from deepwell.fit.result import physical_labels, physical_vector
 
@@ -265,7 +266,8 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens, what="en
     if bad.size:
         worst = bad[np.argmax(np.nan_to_num(rhat[bad], nan=np.inf))]
         problems.append(f"R-hat across {n_ens} independent {what}s is {rhat[worst]:.3f} for "
-                        f"{names[worst]} (need < {RHAT_MAX}; {bad.size} parameter(s) fail)")
+                        f"{names[worst]} (need < {RHAT_MAX}; {plural(bad.size, 'parameter')} "
+                        f"{'fails' if bad.size == 1 else 'fail'})")
     if n_ens < 2:
         problems.append(f"only one {what}: R-hat across independent {what}s is unavailable")
     ok_tau = np.where(np.isfinite(tau), tau, np.inf)
@@ -439,7 +441,8 @@ def sample_posterior(result, options=SamplerOptions(), checkpoint=None, resume=F
     if short:
         what = "chain" if nuts else "ensemble"
         raise SamplingError(
-            f"{what}(s) {', '.join(map(str, short))} stopped with fewer than 4 kept draws "
+            f"{what}{'' if len(short) == 1 else 's'} {', '.join(map(str, short))} stopped with "
+            "fewer than 4 kept draws "
             f"({'; '.join(f'{r.stop_reason}' for r in runs)}): nothing to summarise; "
             "allow more time (--max-time) or steps, or continue with --resume")
     notes = _coordinates_notes(target, centre, cov, runs) if nuts else ()

@@ -12,6 +12,7 @@ The sky axes follow the sky: east to the left, north up, equal scales.
 import matplotlib
 import numpy as np
 
+from deepwell.core.text import plural
 from deepwell.model.epochs import model_at_epochs, star_vector
 from deepwell.model.kernels.orbit import keplerian_track
 from deepwell.model.quality import POOR_COVERAGE
@@ -150,7 +151,8 @@ def sky_figure(result, draws=None):
                 ax.set_title(f"zoom: central ±{half:.0f} mas", fontweight="normal")
         ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0,
                   markerscale=1.6)
-        fig.suptitle(f"Orbits of {len(m.stars)} stars around the central mass",
+        fig.suptitle(f"{'Orbit' if len(m.stars) == 1 else 'Orbits'} of "
+                     f"{plural(len(m.stars), 'star')} around the central mass",
                      fontsize=11, fontweight="bold")
     return fig
 
