@@ -21,7 +21,7 @@ from deepwell.core.errors import InputError
 from deepwell.core.text import plural
 from deepwell.fit.sampling.backend import CheckpointError
 from deepwell.fit.sampling.ensemble import LineProgress, make_progress, run_ensemble
-from deepwell.report.figures.style import file_stem
+from deepwell.report.figures.style import MARKERS, PALETTE, file_stem, style_of
 from deepwell.tables.observations import read_velocities
 from tests.conftest import SMALL_SCENARIO
 
@@ -85,6 +85,7 @@ def test_long_and_colliding_star_names_each_get_their_own_figures(tmp_path, smal
     stars = ["a/b", "a b", "t-3", long_name]
     assert sorted(found.values()) == sorted(stars)
     assert len(set(found)) == 4  # four different files
+    assert "own pair of colour and marker shape" in report  # the sky figure's caption
     for stem, star in found.items():
         assert stem == file_stem("star", star)  # the same name gives the same stem
         for ext in ("png", "pdf"):
@@ -275,3 +276,13 @@ def test_other_libraries_info_lines_do_not_reach_the_user(tmp_path, monkeypatch,
     err = capsys.readouterr().err
     assert "fontManager" not in err
     assert "scenario written" in err
+
+
+# ------------------------------------------------------------------ sky figure
+def test_every_star_of_a_large_set_has_its_own_colour_and_marker():
+    # 49 = 7 Okabe-Ito colours x 7 marker shapes (style.PALETTE, style.MARKERS); colour
+    # is never the only cue (common practice for figures read in grey or by colour-blind
+    # readers), and neighbours differ in both
+    pairs = [style_of(k) for k in range(len(PALETTE) * len(MARKERS))]
+    assert len(set(pairs)) == len(pairs)
+    assert all(a[0] != b[0] and a[1] != b[1] for a, b in zip(pairs[:-1], pairs[1:], strict=True))

@@ -404,8 +404,9 @@ def sample_posterior(result, options=SamplerOptions(), checkpoint=None, resume=F
         n_walkers = int(n_walkers or 2 * ndim + 2)
         n_walkers += n_walkers % 2
         if n_walkers < 2 * ndim:
-            raise ValueError(f"n_walkers={n_walkers} is below twice the {ndim} sampled "
-                             "parameters")
+            raise SamplingError(f"{n_walkers} walkers per ensemble are fewer than twice the "
+                                f"{ndim} sampled parameters; use at least {2 * ndim} "
+                                "(--walkers)")
         thin = int(thin or max(1, ndim // 8))
         mv = _moves(moves)
     base_hash = fingerprint(

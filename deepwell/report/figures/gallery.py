@@ -51,7 +51,9 @@ def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=
     jobs = [("sky", lambda: sky_figure(result, draws),
              "All orbits on the sky, centred on the mass (black cross). Frame-relative positions "
              "have the fitted reference-point drift subtracted, so every data set is "
-             "shown relative to the mass; lines are the fitted orbits. East is to the left."
+             "shown relative to the mass; lines are the fitted orbits. East is to the left. "
+             "Each star has its own pair of colour and marker shape (legend at right), so "
+             "stars stay apart in print and for colour-blind readers."
              + band)]
     for star in result.model.stars:
         jobs.append((figure_name(star), lambda s=star: star_figure(result, s, draws),

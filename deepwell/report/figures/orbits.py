@@ -141,7 +141,7 @@ def sky_figure(result, draws=None):
                 ax.plot(tracks[k].east, tracks[k].north, color=colour, lw=0.9, zorder=2)
                 sel = m.pos.star == k
                 ax.errorbar(ra[sel], dec[sel], xerr=m.pos.ra_err[sel], yerr=m.pos.dec_err[sel],
-                            fmt=marker, color=colour, ms=2.6, mew=0.3, mec="black",
+                            fmt=marker, color=colour, ms=4.2, mew=0.4, mec="black",
                             elinewidth=0.5, zorder=3, label=star)
             if half is None:
                 _square_limits(ax, xs, ys)
@@ -150,7 +150,7 @@ def sky_figure(result, draws=None):
                 _square_limits(ax, [-half, half], [-half, half], pad=0.0)
                 ax.set_title(f"zoom: central ±{half:.0f} mas", fontweight="normal")
         ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0,
-                  markerscale=1.6)
+                  markerscale=1.3, ncols=1 if len(m.stars) <= 24 else 2)
         fig.suptitle(f"{'Orbit' if len(m.stars) == 1 else 'Orbits'} of "
                      f"{plural(len(m.stars), 'star')} around the central mass",
                      fontsize=11, fontweight="bold")

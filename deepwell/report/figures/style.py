@@ -74,7 +74,11 @@ STYLE = {
 
 
 def style_of(k):
-    """Colour and marker of item k; both change, so colour is never the only cue."""
+    """Colour and marker of item k; both change, so colour is never the only cue.
+
+    The first ``len(PALETTE) * len(MARKERS)`` (49) items all get different
+    (colour, marker) pairs, and neighbours differ in both.
+    """
     return PALETTE[k % len(PALETTE)], MARKERS[(k // len(PALETTE) + k) % len(MARKERS)]
 
 
