@@ -286,3 +286,18 @@ def test_every_star_of_a_large_set_has_its_own_colour_and_marker():
     pairs = [style_of(k) for k in range(len(PALETTE) * len(MARKERS))]
     assert len(set(pairs)) == len(pairs)
     assert all(a[0] != b[0] and a[1] != b[1] for a, b in zip(pairs[:-1], pairs[1:], strict=True))
+
+
+@pytest.mark.parametrize(("option", "value"), [
+    ("--steps", "0"), ("--chains", "-2"), ("--max-time", "nan"), ("--max-time", "inf"),
+    ("--extended-mass", "-5"), ("--reference-radius", "0"), ("--walkers", "x"),
+])
+def test_impossible_command_line_number_is_refused_before_any_work(tmp_path, capsys, option,
+                                                                   value):
+    with pytest.raises(SystemExit) as info:  # argparse's own exit, status 2
+        main(["fit", str(tmp_path), "--out", str(tmp_path / "rep"), option, value])
+    assert info.value.code == 2
+    err = capsys.readouterr().err
+    assert "Traceback" not in err
+    assert f"argument {option}" in err.splitlines()[-1]
+    assert not (tmp_path / "rep").exists()
