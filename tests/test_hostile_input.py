@@ -214,10 +214,13 @@ def test_damaged_checkpoint_is_refused_with_one_line_naming_the_file(tmp_path, s
     shutil.copytree(str(sampled_report) + ".chains", str(out) + ".chains")
     before = _snapshot(out)
     damage(tmp_path / "rep.chains" / "chain_1.h5")
+    chain_0 = (tmp_path / "rep.chains" / "chain_0.h5").read_bytes()
     code, msg = _resume(small_scenario, out, capsys)
     assert code == 2
     assert "chain_1.h5" in msg and "damaged checkpoint" in msg and words in msg
     assert _snapshot(out) == before
+    # every checkpoint is checked before any chain runs on: chain 0 did not continue
+    assert (tmp_path / "rep.chains" / "chain_0.h5").read_bytes() == chain_0
 
 
 def test_ensemble_checkpoint_with_other_shapes_or_a_missing_array_is_refused(tmp_path):

@@ -204,7 +204,7 @@ def _log_prob_fn(log_prob):
 def run_ensemble(log_prob, p0, rng, n_steps=None, *, moves=None, thin=1, checkpoint=None,
                  fingerprint="", resume=False, checkpoint_every=500, max_time=None,
                  progress=False, stop_rule=None, check_every=500, max_steps=100_000,
-                 desc="sampling", position=0):
+                 desc="sampling", position=0, check_only=False):
     """Run one ensemble of walkers.
 
     Parameters
@@ -239,6 +239,9 @@ def run_ensemble(log_prob, p0, rng, n_steps=None, *, moves=None, thin=1, checkpo
         ``close``.
     stop_rule : callable, optional
         ``stop_rule(chain, thin) -> bool`` on the stored chain.
+    check_only : bool
+        With ``resume``: only read and check the checkpoint (CheckpointError if it
+        cannot be resumed) and return None.
 
     Returns
     -------
@@ -265,6 +268,8 @@ def run_ensemble(log_prob, p0, rng, n_steps=None, *, moves=None, thin=1, checkpo
                                   f"steps after {ck.step} steps thinned by {thin}); refusing "
                                   "to resume. Start a new run without --resume.")
         restore_rng(checkpoint, rng, ck.rng_state)
+        if check_only:
+            return None
         chains, lps = [ck.chain], [ck.log_prob]
         coords, lp, accepted = ck.coords.copy(), ck.last_log_prob.copy(), ck.accepted.copy()
         step, elapsed0 = ck.step, ck.elapsed

@@ -133,7 +133,7 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
               checkpoint=None, fingerprint="", resume=False, checkpoint_every=50,
               max_time=None, progress=False, stop_rule=None, check_every=50,
               max_draws=20_000, min_draws=200, max_depth=8, adapt_metric=True,
-              desc="chain", position=0, state_arc=STATE_ARC):
+              desc="chain", position=0, state_arc=STATE_ARC, check_only=False):
     """Run one NUTS chain on a :class:`~deepwell.fit.sampling.target.LogPosterior`.
 
     Parameters
@@ -162,6 +162,10 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
         Stars whose data span less than this fraction of their period move in
         their position and velocity (:mod:`deepwell.fit.sampling.coordinates`).
 
+    check_only : bool
+        With ``resume``: only read and check the checkpoint (CheckpointError if it
+        cannot be resumed) and return None.
+
     Returns
     -------
     ChainRun
@@ -177,6 +181,8 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
         arr, att = load_state(checkpoint, fingerprint, kind=_KIND)
         _check_chain_state(checkpoint, arr, att, len(centre), n_warmup)
         restore_rng(checkpoint, rng, att["rng_state"])
+        if check_only:
+            return None
         wt = WhitenedTarget(target, centre, prior_cov, cov_u=arr["metric"],
                             state_arc=state_arc)
         z, lp, grad = arr["z"], float(att["log_prob"]), arr["grad"]

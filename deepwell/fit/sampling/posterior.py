@@ -437,6 +437,9 @@ def sample_posterior(result, options=SamplerOptions(), checkpoint=None, resume=F
                 log_prob=target, p0=p0, n_steps=n_steps, moves=mv, thin=thin, checkpoint=ck,
                 checkpoint_every=checkpoint_every or 500, check_every=check_every or 500,
                 max_steps=max_steps or 100_000, desc=f"ensemble {k}", **common)))
+    if resume:  # every checkpoint is checked before any chain runs on
+        for fn, job in jobs:
+            fn(**job, check_only=True)
     runs = _run_all(jobs, processes)
     short = [k for k, r in enumerate(runs) if r.n_steps < 4]
     if short:
