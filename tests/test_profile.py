@@ -21,7 +21,7 @@ from deepwell.model.kernels.relativity import (
     osculating_state,
     plummer_enclosed_mass,
 )
-from deepwell.report.figures.enclosed import plot_enclosed_mass
+from deepwell.report.figures.enclosed import figure_data, plot_enclosed_mass
 from deepwell.results import enclosed as pr
 from deepwell.results.compactness import cluster_lifetimes
 from deepwell.tables import constraints
@@ -243,3 +243,21 @@ def test_enclosed_mass_figure_writes_pdf_and_200_dpi_png(rich_profile, tmp_path)
     assert [f.suffix for f in files] == [".pdf", ".png"]
     assert files[0].read_bytes()[:5] == b"%PDF-"
     assert matplotlib.image.imread(files[1]).shape[:2] == (1120, 1280)
+
+
+def test_enclosed_mass_figure_shows_the_measured_range_with_the_whole_range_beside(rich_profile):
+    # The main panel spans what the stars measure: every well-constrained star's
+    # pericentre-to-apocentre bar and 1-sigma mass bar, and the joint point-mass band
+    # (geometry only, common practice for a figure's limits); the whole range from the
+    # Schwarzschild radius outwards is kept for the second panel.
+    d = figure_data(rich_profile)
+    (x0, x1), (y0, y1) = d["x_measured"], d["y_measured"]
+    good = ~d["poor"]
+    assert good.any()
+    assert x0 <= d["r_lo"].min() and x1 >= d["r_hi"].max()
+    assert y0 <= (d["m"] - d["m_err"])[good].min() and y1 >= (d["m"] + d["m_err"])[good].max()
+    m, sig = rich_profile.joint_mass, rich_profile.joint_mass_sigma
+    assert y0 < m - sig and y1 > m + sig
+    # the mass window is a few per cent of the mass wide, not decades as on a log axis
+    assert (y1 - y0) / m < 0.5
+    assert d["x_range"][0] < d["r_s"] < x0 and d["x_range"][1] >= x1

@@ -98,8 +98,12 @@ def main(argv=None):
     parser = _parser()
     args = parser.parse_args(argv)
     args.argv = list(sys.argv[1:] if argv is None else argv)
+    # Our own messages at INFO (WARNING with -q); other libraries' chatter (such as
+    # matplotlib's "generated new fontManager" on a first run) only from WARNING up.
     logging.basicConfig(format="deepwell: %(message)s", stream=sys.stderr, force=True,
-                        level=logging.WARNING if getattr(args, "quiet", False) else logging.INFO)
+                        level=logging.WARNING)
+    level_before = log.level
+    log.setLevel(logging.WARNING if getattr(args, "quiet", False) else logging.INFO)
     logging.captureWarnings(True)
     shown = warnings.formatwarning
     warnings.formatwarning = lambda message, category, *rest, **kw: \
@@ -120,6 +124,7 @@ def main(argv=None):
               file=sys.stderr)
         return 143
     finally:
+        log.setLevel(level_before)
         logging.captureWarnings(False)
         warnings.formatwarning = shown
 

@@ -10,7 +10,7 @@ from deepwell.fit.sampling import SamplerOptions
 from deepwell.tables import Settings, datasets_from_args, effects_from_args, load_settings
 from deepwell.tools.pipeline import FitJob, fit_report
 
-from .options import common
+from .options import common, count, positive
 
 __all__ = ["add_fit_parser", "run_fit"]
 
@@ -42,9 +42,9 @@ def add_fit_parser(sub):
                     help="no Schwarzschild precession (Keplerian ellipses)")
     gr.add_argument("--fit-f", action="store_true", help="fit the redshift factor f")
     gr.add_argument("--fit-f-sp", action="store_true", help="fit the precession factor f_sp")
-    gr.add_argument("--extended-mass", nargs="+", type=float, metavar="B_AU",
+    gr.add_argument("--extended-mass", nargs="+", type=positive, metavar="B_AU",
                     help="upper limits on a Plummer mass for these scale radii (au; one fit each)")
-    gr.add_argument("--reference-radius", type=float, metavar="AU",
+    gr.add_argument("--reference-radius", type=positive, metavar="AU",
                     help="radius inside which the extended mass is quoted (default: "
                          "apocentre of the tightest star)")
     post = p.add_argument_group("posterior sampling")
@@ -53,16 +53,16 @@ def add_fit_parser(sub):
     post.add_argument("--sampler", choices=("nuts", "ensemble"), default="nuts",
                       help="nuts: No-U-Turn Hamiltonian chains (default); ensemble: emcee "
                            "differential-evolution ensembles")
-    post.add_argument("--steps", type=int,
+    post.add_argument("--steps", type=count(1),
                       help="kept draws per chain, or steps per ensemble (default: run until "
                            "the convergence rule holds)")
-    post.add_argument("--warmup", type=int, help="warm-up transitions per NUTS chain "
+    post.add_argument("--warmup", type=count(0), help="warm-up transitions per NUTS chain "
                                                  "(default 300)")
-    post.add_argument("--chains", "--ensembles", dest="chains", type=int,
+    post.add_argument("--chains", "--ensembles", dest="chains", type=count(1),
                       help="independent chains (default 4) or ensembles (default 2); R-hat "
                            "is computed across them")
-    post.add_argument("--walkers", type=int, help="walkers per ensemble (--sampler ensemble)")
-    post.add_argument("--max-time", type=float, metavar="SECONDS",
+    post.add_argument("--walkers", type=count(2), help="walkers per ensemble (--sampler ensemble)")
+    post.add_argument("--max-time", type=positive, metavar="SECONDS",
                       help="wall-time budget per chain; a run cut short says NOT CONVERGED")
     post.add_argument("--seed", type=int, default=0, help="random seed of the sampler")
     post.add_argument("--resume", action="store_true",

@@ -27,6 +27,8 @@ class InputError(DeepwellError, ValueError):
         Column name.
     """
 
+    _WHERE = "column"
+
     def __init__(self, message, file=None, row=None, column=None):
         self.message = message
         self.file = None if file is None else str(file)
@@ -41,13 +43,19 @@ class InputError(DeepwellError, ValueError):
         if self.row is not None:
             where.append(f"line {self.row}")
         if self.column is not None:
-            where.append(f"column '{self.column}'")
+            where.append(f"{self._WHERE} '{self.column}'")
         prefix = ", ".join(where)
         return f"{prefix}: {self.message}" if prefix else self.message
 
 
 class SettingsError(InputError):
-    """A problem in the TOML settings file or a scenario description."""
+    """A problem in the TOML settings file or a scenario description.
+
+    ``column`` holds the dotted TOML key (e.g. ``shared.mass.min``); it is
+    shown as ``key '...'``.
+    """
+
+    _WHERE = "key"
 
 
 class OutputError(DeepwellError):

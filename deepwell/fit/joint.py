@@ -12,6 +12,7 @@ import numpy as np
 
 from deepwell.core.errors import InputError
 from deepwell.core.parameters import SHARED, STAR_INTERNAL
+from deepwell.core.text import plural
 from deepwell.model.joint import JointModel, Prior
 from deepwell.model.quality import POOR_COVERAGE, POOR_REDUCED_CHI2, phase_coverage
 
@@ -56,7 +57,7 @@ def fit_joint(observations, settings, progress=None):
     """
     say = progress or (lambda text: None)
     model = build_model(observations, settings)
-    say(f"searching starting orbits for {len(model.stars)} stars")
+    say(f"searching starting orbits for {plural(len(model.stars), 'star')}")
     start = find_start(model.keplerian(), settings)  # effects: see deepwell.model.effects
     model, start_vec = model.start_from(start.vec, settings)
     start.notes.extend(model.effect_notes())
@@ -73,7 +74,7 @@ def fit_joint(observations, settings, progress=None):
                          "parameters in the settings (e.g. the distance)",
                          file=str(observations.folder))
     vec0 = np.clip(start_vec, lo, hi)
-    say(f"joint fit of {int(free.sum())} parameters to {model.n_data} data")
+    say(f"joint fit of {plural(int(free.sum()), 'parameter')} to {model.n_data} data")
     vec, sol = minimise(model, vec0, free, lo, hi)
     notes = list(start.notes)
     if model.datasets is not None and model.datasets.mixture:  # see deepwell.model.likelihood
@@ -81,7 +82,8 @@ def fit_joint(observations, settings, progress=None):
         notes += [note] if note else []
     poor = _stars_to_polish(model, vec)
     if poor:
-        say(f"searching again for {len(poor)} poorly constrained star(s) with the fitted frame")
+        say(f"searching again for {plural(len(poor), 'poorly constrained star')} with the "
+            "fitted frame")
         vec2, changed = polish_stars(model, vec, poor)
         if changed:
             vec2, sol2 = minimise(model, vec2, free, lo, hi)

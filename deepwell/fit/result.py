@@ -14,6 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from deepwell.core.parameters import STAR_ELEMENTS
+from deepwell.core.text import plural
 from deepwell.core.units import STAR_REPORTED, UNITS
 from deepwell.model.kernels.orbit import pericentre_speed_kms
 from deepwell.model.kernels.relativity import schwarzschild_radius_au
@@ -198,7 +199,8 @@ def assemble_result(model, vec, free, settings, observations, notes=(), converge
     cov_phys = G @ cov_int @ G.T
     chi_s, n_s = model.star_chi2(vec)
     if rank_def and not any("not constrained by the data" in n for n in notes):
-        notes.append(f"{rank_def} parameter combination(s) are not constrained by the data "
+        notes.append(f"{plural(rank_def, 'parameter combination')} "
+                     f"{'is' if rank_def == 1 else 'are'} not constrained by the data "
                      "(singular covariance); their errors are not meaningful")
         warnings.warn(FitWarning(notes[-1]), stacklevel=2)
     return FitResult(

@@ -24,6 +24,7 @@ from scipy.optimize import least_squares
 from deepwell.core.constants import KEPLER_K, KMS_PER_AU_PER_YR
 from deepwell.core.errors import InputError
 from deepwell.core.parameters import SHARED, STAR_ELEMENTS, STAR_INTERNAL
+from deepwell.core.text import plural
 from deepwell.model.kernels.kepler import solve_kepler
 from deepwell.model.kernels.orbit import (
     a_from_period,
@@ -293,7 +294,7 @@ def find_start(model, settings, shared_start=None):
     for name in SHARED:
         res.vec[layout.index(name)] = shared[name]
     res.notes.append(f"automatic start: mass {mass:.4g} solMass and distance {dist:.5g} pc "
-                     f"from {len(dists)} star(s) with velocities")
+                     f"from {plural(len(dists), 'star')} with velocities")
 
     # per-star search with Kepler's third law and the velocities, then refinement
     # with the star's own mass free (the distance held), so that a small error

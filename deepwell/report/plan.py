@@ -23,6 +23,7 @@ import matplotlib
 import numpy as np
 from astropy.table import Table
 
+from deepwell.core.text import plural
 from deepwell.core.units import unit_of
 from deepwell.report.figures.style import MARKERS, PALETTE, STYLE, new_figure, save_figure
 
@@ -97,7 +98,8 @@ def plan_markdown(plan, result):
     """The text of ``plan.md``: key dates, ranking, confusion and caveats."""
     s = plan.settings
     lines = [f"# Observing plan {s.start:g} to {s.end:g}", "",
-             f"From the fit in this report ({plan.source}; {len(result.model.stars)} stars, "
+             f"From the fit in this report ({plan.source}; "
+             f"{plural(len(result.model.stars), 'star')}, "
              f"{s.n_draws} parameter draws). Epochs are Julian years (TT).", "",
              "**Read this first.** Every number here assumes that the fitted model is right "
              "and that new data have exactly the stated errors "

@@ -33,6 +33,7 @@ from pathlib import Path
 import numpy as np
 
 from deepwell.core.jsonsafe import json_safe
+from deepwell.core.text import plural
 from deepwell.core.version import __version__
 from deepwell.model.quality import GOOD_RPERI_ERROR, POOR_COVERAGE, POOR_PERIOD_ERROR
 from deepwell.results.compactness import compactness, compactness_paragraph
@@ -354,8 +355,10 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
     out = [
         *([banner, ""] if banner else []),
         "# deepwell report", "",
-        f"Joint {kind} fit of {len(result.stars)} stars' orbits around one central mass, "
-        f"from {result.model.pos.n} sky positions and {n_vel} radial velocities in "
+        f"Joint {kind} fit of the {'orbit' if len(result.stars) == 1 else 'orbits'} of "
+        f"{plural(len(result.stars), 'star')} around one central mass, "
+        f"from {plural(result.model.pos.n, 'sky position')} and "
+        f"{plural(n_vel, 'radial velocity', 'radial velocities')} in "
         f"`{obs.folder}`.", "",
         "## Key numbers", "",
         f"- Central mass: **{_md_pm(result, 'mass')} M☉**",

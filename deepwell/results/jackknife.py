@@ -23,6 +23,7 @@ import numpy as np
 from scipy import stats
 
 from deepwell.core.errors import DeepwellError
+from deepwell.core.text import plural
 from deepwell.fit.joint import build_model, fit_joint
 from deepwell.fit.least_squares import bounds, minimise
 from deepwell.fit.result import assemble_result
@@ -229,8 +230,8 @@ def jackknife(observations, settings, by="star", result=None, progress=None):
         notes.append(f"{len(units) - n} of {len(units)} leave-one-out refits failed or were "
                      "skipped; the jackknife error uses the others")
     if n and n < 8:
-        notes.append(f"the jackknife error rests on only {n} refits: it is itself uncertain by "
-                     f"about {100 / np.sqrt(2 * max(n - 1, 1)):.0f}%")
+        notes.append(f"the jackknife error rests on only {plural(n, 'refit')}: it is itself "
+                     f"uncertain by about {100 / np.sqrt(2 * max(n - 1, 1)):.0f}%")
     for q in _Q:
         if n > 1 and jk[q] > 2 * stat[q]:
             notes.append(f"the jackknife error of the {q} is {jk[q] / stat[q]:.1f} times the "

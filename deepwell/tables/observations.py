@@ -24,6 +24,7 @@ from astropy.time import Time
 from astropy.utils.exceptions import AstropyWarning
 from erfa import ErfaWarning
 
+from deepwell.core.constants import C_KMS
 from deepwell.core.errors import InputError
 from deepwell.core.units import UNITS
 
@@ -51,6 +52,26 @@ _COLUMNS = {kind: (*_REQUIRED[kind], *_OPTIONAL[kind], "line", "file") for kind 
 _UNITS = {k: u.Unit(UNITS[k]) for k in ("ra", "dec", "ra_err", "dec_err", "vr", "vr_err", "corr")}
 _TEXT = ("star", "dataset", "relative_to", "exclude")
 _TRUE, _FALSE = {"true", "yes", "1"}, {"false", "no", "0", ""}
+
+
+#: One degree in mas: the largest sky offset (and position error) accepted.  The model
+#: treats offsets from the mass as a flat tangent plane, good for small angles only.
+_MAX_OFFSET_MAS = 3.6e6
+#: Sane range of each numeric column (internal units), with the reason stated to the
+#: user: offsets within one degree, velocities below the speed of light (astropy's c),
+#: errors above 1e-6 mas and 1e-6 km/s (far below any instrument, common practice) so
+#: that squared whitened residuals stay well inside double precision.
+_RANGES = {
+    "ra": (-_MAX_OFFSET_MAS, _MAX_OFFSET_MAS, "an offset within one degree (3.6e6 mas) of the "
+           "centre; the fit treats the sky as a flat tangent plane"),
+    "dec": (-_MAX_OFFSET_MAS, _MAX_OFFSET_MAS, "an offset within one degree (3.6e6 mas) of the "
+            "centre; the fit treats the sky as a flat tangent plane"),
+    "ra_err": (1e-6, _MAX_OFFSET_MAS, "an error between 1e-6 mas and one degree (3.6e6 mas)"),
+    "dec_err": (1e-6, _MAX_OFFSET_MAS, "an error between 1e-6 mas and one degree (3.6e6 mas)"),
+    "vr": (-C_KMS, C_KMS, f"a velocity below the speed of light ({C_KMS:.6g} km/s)"),
+    "vr_err": (1e-6, C_KMS, f"an error between 1e-6 km/s and the speed of light "
+               f"({C_KMS:.6g} km/s)"),
+}
 
 
 class DataWarning(UserWarning):
@@ -300,6 +321,10 @@ def _validate(t, kind):
         out[key] = t.numbers(key)
         if key.endswith("_err"):
             t.check(out[key] <= 0, key, lambda v: f"error must be positive: {v!r}")
+        lo, hi, sane = _RANGES[key]
+        unit = UNITS[key]
+        t.check((out[key] < lo) | (out[key] > hi), key,
+                lambda v, sane=sane, unit=unit: f"{v} {unit} is out of range: expected {sane}")
     if kind == "positions":
         out["corr"] = t.numbers("corr", default=0.0) if "corr" in t.cells else \
             np.zeros(len(t.lines))

@@ -60,6 +60,7 @@ table that are left out keep the parameter's defaults (``f`` and ``f_sp``:
 value 1, fixed), so ``value = 0.9`` alone holds f at 0.9.
 """
 
+import math
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -152,19 +153,55 @@ class Settings:
         return parse_datasets(self.datasets, self.fit, file=self.source)
 
 
+#: Julian years (TT) a reference epoch may take: the era of telescopic astrometry,
+#: widened on both sides (common practice: no orbit data predate 1000 or follow 3000).
+REFERENCE_EPOCH_RANGE = (1000.0, 3000.0)
+
+
 def _number(value, file, key):
+    """A finite number of the settings file (int or float; not a bool, nan or inf)."""
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise SettingsError(f"expected a number, got {value!r}", file=file, column=key)
-    return float(value)
+    value = float(value)
+    if not math.isfinite(value):
+        raise SettingsError(f"must be a finite number, got {value!r}", file=file, column=key)
+    return value
 
 
-def _prior(spec, file, key):
+#: Elements whose physical range is open at an end: a > 0 and 0 <= e < 1.
+_OPEN = {"a": (True, False), "e": (False, True)}
+
+
+def _in_domain(value, spec, file, key, what="value"):
+    """Refuse a number outside the parameter's physical range [spec.lower, spec.upper].
+
+    The range of mass and distance is positive (the model's [1, 1e12] solMass and
+    [1, 1e9] pc); ``a`` is positive and ``e`` in [0, 1) (see :mod:`deepwell.core.parameters`).
+    """
+    lo, hi = spec.lower, spec.upper
+    open_lo, open_hi = _OPEN.get(spec.name, (False, False))
+    if (lo < value if open_lo else lo <= value) and (value < hi if open_hi else value <= hi):
+        return value
+    unit = f" {spec.unit}" if spec.unit else ""
+    if math.isinf(hi):
+        rng = f"{'>' if open_lo else '>='} {lo:g}{unit}"
+    elif math.isinf(lo):
+        rng = f"<= {hi:g}{unit}"
+    else:
+        rng = f"in {'(' if open_lo else '['}{lo:g}, {hi:g}{')' if open_hi else ']'}{unit}"
+    raise SettingsError(f"{what} {value:g} is outside the range of {spec.name}: it must be "
+                        f"{rng}", file=file, column=key)
+
+
+def _prior(spec, file, key, param=None):
     if not isinstance(spec, dict) or set(spec) != {"mean", "sigma"}:
         raise SettingsError("a prior is { mean = ..., sigma = ... }", file=file, column=key)
     mean = _number(spec["mean"], file, key + ".mean")
     sigma = _number(spec["sigma"], file, key + ".sigma")
     if not sigma > 0:
         raise SettingsError("prior sigma must be positive", file=file, column=key + ".sigma")
+    if param is not None:
+        _in_domain(mean, param, file, key + ".mean", "prior mean")
     return mean, sigma
 
 
@@ -178,10 +215,11 @@ def _shared(name, spec, file):
     unknown = set(spec) - _SHARED_KEYS
     if unknown:
         raise SettingsError(f"unknown key '{sorted(unknown)[0]}'", file=file, column=key)
+    param = SHARED.get(name) or EXTRA[name]
     kw = {}
     for k in ("value", "min", "max"):
         if k in spec:
-            kw[k] = _number(spec[k], file, f"{key}.{k}")
+            kw[k] = _in_domain(_number(spec[k], file, f"{key}.{k}"), param, file, f"{key}.{k}", k)
     if "fixed" in spec:
         if not isinstance(spec["fixed"], bool):
             raise SettingsError("fixed must be true or false", file=file, column=key + ".fixed")
@@ -189,10 +227,14 @@ def _shared(name, spec, file):
         if spec["fixed"] and "value" not in spec and name not in EXTRA:
             raise SettingsError("a fixed parameter needs a value", file=file, column=key)
     if "prior" in spec:
-        kw["prior_mean"], kw["prior_sigma"] = _prior(spec["prior"], file, key + ".prior")
-    lo, hi = kw.get("min"), kw.get("max")
-    if lo is not None and hi is not None and not lo < hi:
-        raise SettingsError("min must be below max", file=file, column=key)
+        kw["prior_mean"], kw["prior_sigma"] = _prior(spec["prior"], file, key + ".prior", param)
+    lo, hi = kw.get("min", param.lower), kw.get("max", param.upper)
+    if not lo < hi:
+        raise SettingsError(f"min must be below max (here {lo:g} and {hi:g})", file=file,
+                            column=key)
+    if "value" in kw and not lo <= kw["value"] <= hi:
+        raise SettingsError(f"value {kw['value']:g} is outside the bounds [{lo:g}, {hi:g}]",
+                            file=file, column=f"{key}.value")
     spec = EXTRA.get(name)
     if spec is not None:  # effect strengths keep their defaults for keys left out
         kw.setdefault("value", spec.default)
@@ -207,7 +249,8 @@ def _star(name, spec, file):
     start, priors, fixed = {}, {}, False
     for k, v in spec.items():
         if k in STAR_ELEMENTS:
-            start[k] = _number(v, file, f"{key}.{k}")
+            start[k] = _in_domain(_number(v, file, f"{key}.{k}"), STAR_ELEMENTS[k], file,
+                                  f"{key}.{k}")
         elif k == "fixed":
             if not isinstance(v, bool):
                 raise SettingsError("fixed must be true or false", file=file, column=f"{key}.fixed")
@@ -218,14 +261,12 @@ def _star(name, spec, file):
             for el, p in v.items():
                 if el not in STAR_ELEMENTS:
                     raise SettingsError(f"unknown element '{el}'", file=file, column=f"{key}.prior")
-                priors[el] = _prior(p, file, f"{key}.prior.{el}")
+                priors[el] = _prior(p, file, f"{key}.prior.{el}", STAR_ELEMENTS[el])
         else:
             raise SettingsError(f"unknown key '{k}' (elements: {', '.join(STAR_ELEMENTS)})",
                                 file=file, column=key)
     if fixed and set(start) != set(STAR_ELEMENTS):
         raise SettingsError("a fixed star needs all six elements", file=file, column=key)
-    if "e" in start and not 0.0 <= start["e"] < 1.0:
-        raise SettingsError("e must be in [0, 1)", file=file, column=f"{key}.e")
     return StarSetting(start=start, fixed=fixed, priors=priors)
 
 
@@ -235,6 +276,10 @@ def parse_settings(data, file=None):
     if unknown:
         raise SettingsError(f"unknown key '{sorted(unknown)[0]}'", file=file)
     ref = _number(data.get("reference_epoch", 2000.0), file, "reference_epoch")
+    if not REFERENCE_EPOCH_RANGE[0] <= ref <= REFERENCE_EPOCH_RANGE[1]:
+        raise SettingsError(f"must be a Julian year between {REFERENCE_EPOCH_RANGE[0]:g} and "
+                            f"{REFERENCE_EPOCH_RANGE[1]:g}, got {ref:g}", file=file,
+                            column="reference_epoch")
     min_epochs = data.get("min_epochs", 3)
     if isinstance(min_epochs, bool) or not isinstance(min_epochs, int) or min_epochs < 3:
         raise SettingsError("min_epochs must be an integer >= 3", file=file, column="min_epochs")

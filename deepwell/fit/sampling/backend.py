@@ -27,7 +27,8 @@ import numpy as np
 from deepwell.core.errors import DeepwellError
 
 __all__ = ["Checkpoint", "CheckpointError", "CheckpointMismatch", "save_checkpoint",
-           "load_checkpoint", "save_state", "load_state", "fingerprint"]
+           "load_checkpoint", "save_state", "load_state", "check_state", "restore_rng",
+           "fingerprint"]
 
 _FORMAT = "deepwell-checkpoint-1"
 
@@ -111,7 +112,7 @@ def load_state(path, expected_fingerprint=None, kind=_FORMAT, json_attrs=("rng_s
         with h5py.File(path, "r") as f:
             if f.attrs.get("format") != kind:
                 raise CheckpointError(f"{path}: not a deepwell checkpoint of this sampler")
-            fp = str(f.attrs["fingerprint"])
+            fp = str(f.attrs.get("fingerprint", ""))
             if expected_fingerprint is not None and fp != expected_fingerprint:
                 raise CheckpointMismatch(
                     f"{path}: the checkpoint was written for different data, settings or "
@@ -124,8 +125,84 @@ def load_state(path, expected_fingerprint=None, kind=_FORMAT, json_attrs=("rng_s
                 attrs[name] = (json.loads(value, object_hook=_json_hook)
                                if name in json_attrs else value)
             return arrays, attrs
+    except CheckpointError:
+        raise
     except OSError as exc:
         raise CheckpointError(f"{path}: cannot read checkpoint ({exc})") from None
+    except (KeyError, ValueError, TypeError, AttributeError) as exc:  # altered by hand
+        raise CheckpointError(f"{path}: damaged checkpoint ({type(exc).__name__}: {exc}); "
+                              "refusing to resume. Start a new run without --resume.") from None
+
+
+def check_state(path, arrays, attrs, shapes, attr_kinds, dims=None):
+    """Refuse a damaged or altered checkpoint: every array and attribute present and sane.
+
+    Parameters
+    ----------
+    path : path
+        The file (named in the error).
+    arrays, attrs : dict
+        As returned by :func:`load_state`.
+    shapes : dict
+        Array name -> expected shape; each entry is an int or a letter that must
+        stand for the same length wherever it appears (e.g. ``("S", "W", "D")``).
+    attr_kinds : dict
+        Attribute name -> ``"int"`` (integer >= 0), ``"float"`` (finite),
+        ``"positive"`` (finite, > 0), ``"str"`` or ``"state"`` (a dict).
+    dims : dict, optional
+        Lengths already known (e.g. ``{"D": 12}`` from the sampled parameters).
+
+    Returns
+    -------
+    dict
+        Letter -> length, as found.
+
+    Raises
+    ------
+    CheckpointError
+        Naming the file and the first missing or inconsistent entry.
+    """
+    dims = dict(dims or {})
+
+    def fail(what):
+        raise CheckpointError(f"{path}: damaged checkpoint ({what}); refusing to resume. "
+                              "Start a new run without --resume (the old checkpoint is "
+                              "replaced).")
+
+    for name, shape in shapes.items():
+        if name not in arrays:
+            fail(f"array '{name}' is missing")
+        a = np.asarray(arrays[name])
+        if a.dtype.kind not in "iuf" or a.ndim != len(shape):
+            fail(f"array '{name}' has shape {a.shape}, expected {len(shape)} dimension(s)")
+        for n, want in zip(a.shape, shape, strict=True):
+            want = dims.setdefault(want, n) if isinstance(want, str) else want
+            if n != want:
+                fail(f"array '{name}' has shape {a.shape}, which does not fit the others "
+                     "or the sampled parameters")
+        if not np.all(np.isfinite(a)):
+            fail(f"array '{name}' holds values that are not finite")
+    for name, kind in attr_kinds.items():
+        v = attrs.get(name)
+        ok = {"int": lambda x: isinstance(x, (int, np.integer)) and not isinstance(x, bool)
+              and x >= 0,
+              "float": lambda x: isinstance(x, (int, float, np.number)) and np.isfinite(x),
+              "positive": lambda x: isinstance(x, (int, float, np.number)) and np.isfinite(x)
+              and x > 0,
+              "str": lambda x: isinstance(x, str),
+              "state": lambda x: isinstance(x, dict)}[kind](v)
+        if not ok:
+            fail(f"attribute '{name}' is missing or not a valid {kind}")
+    return dims
+
+
+def restore_rng(path, rng, state):
+    """Set ``rng``'s bit-generator state from a checkpoint; refuse a state that does not fit."""
+    try:
+        rng.bit_generator.state = state
+    except (TypeError, ValueError, KeyError) as exc:
+        raise CheckpointError(f"{path}: damaged checkpoint (random-generator state: {exc}); "
+                              "refusing to resume. Start a new run without --resume.") from None
 
 
 def _json_default(obj):
@@ -142,17 +219,24 @@ def _json_hook(obj):
     return obj
 
 
-def load_checkpoint(path, expected_fingerprint=None):
-    """Read a checkpoint; refuse it if its fingerprint differs from the expected one.
+def load_checkpoint(path, expected_fingerprint=None, dims=None):
+    """Read a checkpoint; refuse it if its fingerprint differs or its contents do not fit.
+
+    ``dims`` may give the known number of walkers ``W`` and parameters ``D``.
 
     Raises
     ------
     CheckpointError
-        Missing or unreadable file.
+        Missing, unreadable or damaged file (a missing array, shapes that do not fit).
     CheckpointMismatch
         The file was written for other data, settings or sampler options.
     """
     arrays, attrs = load_state(path, expected_fingerprint)
+    check_state(path, arrays, attrs,
+                {"chain": ("S", "W", "D"), "log_prob": ("S", "W"), "coords": ("W", "D"),
+                 "last_log_prob": ("W",), "accepted": ("W",)},
+                {"step": "int", "elapsed": "float", "fingerprint": "str", "rng_state": "state"},
+                dims)
     return Checkpoint(step=int(attrs["step"]), fingerprint=str(attrs["fingerprint"]),
                       elapsed=float(attrs["elapsed"]), rng_state=attrs["rng_state"],
                       **{k: arrays[k] for k in ("chain", "log_prob", "coords",

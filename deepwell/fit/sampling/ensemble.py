@@ -3,9 +3,10 @@
 The loop is deliberately thin.  It receives a vectorised log-probability, the
 starting positions, a :class:`numpy.random.Generator` and a small set of
 options; emcee's differential-evolution moves make the proposals; storage
-goes through :mod:`deepwell.fit.sampling.backend`; progress goes to a tqdm bar or
-to a do-nothing object with the same interface, so the loop has no
-``if progress`` branches.
+goes through :mod:`deepwell.fit.sampling.backend`; progress goes to a tqdm bar
+(stderr a terminal), to log lines every 5% (stderr a file or pipe) or to a
+do-nothing object with the same interface, so the loop has no ``if progress``
+branches.
 
 Why not ``emcee.EnsembleSampler`` itself: it draws from a legacy
 ``RandomState``.  Driving emcee's moves directly lets every random number come
@@ -13,15 +14,21 @@ from the Generator passed in, whose bit-generator state is saved with each
 checkpoint, so a resumed run continues the uninterrupted one bit for bit.
 """
 
+import logging
+import math
+import sys
 import time
 from dataclasses import dataclass
 
 import emcee
 import numpy as np
 
-from .backend import Checkpoint, load_checkpoint, save_checkpoint
+from .backend import Checkpoint, CheckpointError, load_checkpoint, restore_rng, save_checkpoint
 
-__all__ = ["EnsembleRun", "default_moves", "run_ensemble", "NoProgress", "make_progress"]
+__all__ = ["EnsembleRun", "default_moves", "run_ensemble", "NoProgress", "LineProgress",
+           "make_progress"]
+
+log = logging.getLogger("deepwell")
 
 
 class NoProgress:
@@ -37,12 +44,65 @@ class NoProgress:
         pass
 
 
+class LineProgress:
+    """Progress as plain log lines (logger ``deepwell``): one line every ``every`` of the run.
+
+    Used when stderr is not a terminal (a log file, a pipe), where a tqdm bar
+    would write a carriage return and a redrawn bar at every step.
+
+    Parameters
+    ----------
+    total : int
+        Steps of the whole run.
+    initial : int
+        Steps already done (a resumed run).
+    desc : str
+        Name of the chain or ensemble, starting every line.
+    every : float
+        Fraction of ``total`` between two lines (default 5%).
+    """
+
+    def __init__(self, total, initial=0, desc="sampling", every=0.05):
+        self.total, self.n, self.desc = max(int(total), 1), int(initial), desc
+        self.stride = max(1, math.ceil(every * self.total))
+        self.postfix = ""
+        self.shown = self.n
+        self.t0 = time.monotonic()
+
+    def _line(self):
+        extra = f", {self.postfix}" if self.postfix else ""
+        log.info("%s: %d/%d steps (%.0f%%), %.0f s%s", self.desc, self.n, self.total,
+                 100.0 * self.n / self.total, time.monotonic() - self.t0, extra)
+        self.shown = self.n
+
+    def update(self, n=1):
+        before = self.n // self.stride
+        self.n += n
+        if self.n // self.stride > before:
+            self._line()
+
+    def set_postfix_str(self, text, refresh=True):
+        self.postfix = text
+
+    def close(self):
+        if self.n != self.shown:
+            self._line()
+
+
 def make_progress(enabled, total, initial=0, desc="sampling", position=0):
-    """A tqdm bar when ``enabled`` (and tqdm importable), else :class:`NoProgress`."""
+    """Progress display of one chain or ensemble.
+
+    A tqdm bar when ``enabled`` and stderr is a terminal; :class:`LineProgress`
+    (a log line every 5%) when stderr is a file or pipe; :class:`NoProgress`
+    when not ``enabled``.  An object with the same interface passed as
+    ``enabled`` is used as it is.
+    """
     if not enabled:
         return NoProgress()
     if not isinstance(enabled, bool):
         return enabled  # an object with the same interface, passed in
+    if not (hasattr(sys.stderr, "isatty") and sys.stderr.isatty()):
+        return LineProgress(total, initial=initial, desc=desc)
     try:
         from tqdm.auto import tqdm
     except ImportError:  # pragma: no cover - tqdm is a dependency
@@ -144,7 +204,7 @@ def _log_prob_fn(log_prob):
 def run_ensemble(log_prob, p0, rng, n_steps=None, *, moves=None, thin=1, checkpoint=None,
                  fingerprint="", resume=False, checkpoint_every=500, max_time=None,
                  progress=False, stop_rule=None, check_every=500, max_steps=100_000,
-                 desc="sampling", position=0):
+                 desc="sampling", position=0, check_only=False):
     """Run one ensemble of walkers.
 
     Parameters
@@ -179,6 +239,9 @@ def run_ensemble(log_prob, p0, rng, n_steps=None, *, moves=None, thin=1, checkpo
         ``close``.
     stop_rule : callable, optional
         ``stop_rule(chain, thin) -> bool`` on the stored chain.
+    check_only : bool
+        With ``resume``: only read and check the checkpoint (CheckpointError if it
+        cannot be resumed) and return None.
 
     Returns
     -------
@@ -198,14 +261,18 @@ def run_ensemble(log_prob, p0, rng, n_steps=None, *, moves=None, thin=1, checkpo
     if resume:
         if checkpoint is None:
             raise ValueError("resume=True needs a checkpoint file")
-        ck = load_checkpoint(checkpoint, fingerprint)
-        rng.bit_generator.state = ck.rng_state
+        dims = {} if p0 is None else dict(zip("WD", np.shape(p0), strict=True))
+        ck = load_checkpoint(checkpoint, fingerprint, dims)
+        if len(ck.chain) != ck.step // thin:
+            raise CheckpointError(f"{checkpoint}: damaged checkpoint ({len(ck.chain)} stored "
+                                  f"steps after {ck.step} steps thinned by {thin}); refusing "
+                                  "to resume. Start a new run without --resume.")
+        restore_rng(checkpoint, rng, ck.rng_state)
+        if check_only:
+            return None
         chains, lps = [ck.chain], [ck.log_prob]
         coords, lp, accepted = ck.coords.copy(), ck.last_log_prob.copy(), ck.accepted.copy()
         step, elapsed0 = ck.step, ck.elapsed
-        if p0 is not None and np.shape(p0) != coords.shape:
-            raise ValueError(f"the checkpoint holds {coords.shape} walker positions, "
-                             f"not {np.shape(p0)}")
     else:
         coords = np.array(p0, dtype=float)
         lp, _ = compute(coords)

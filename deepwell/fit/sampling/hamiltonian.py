@@ -27,7 +27,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .backend import load_state, save_state
+from .backend import CheckpointError, check_state, load_state, restore_rng, save_state
 from .coordinates import COORDS_VERSION, STATE_ARC
 from .ensemble import make_progress
 from .gradient import WhitenedTarget
@@ -114,11 +114,26 @@ def adapted_cov(draws, prior_cov, max_ratio=20.0):
     return w * c + (1.0 - w) * scaled
 
 
+def _check_chain_state(path, arr, att, n, n_warmup):
+    """Refuse a NUTS checkpoint with missing entries or shapes that do not fit ``n`` parameters."""
+    dims = check_state(path, arr, att,
+                       {"z": ("D",), "grad": ("D",), "metric": ("D", "D"),
+                        "dual": (len(DualAveraging(1.0).state()),), "window": ("M", "D"),
+                        "chain": ("S", "D"), "log_prob": ("S",), "stats": ("S", 3)},
+                       {"fingerprint": "str", "rng_state": "state", "eps": "positive",
+                        "log_prob": "float", "iteration": "int", "n_grad": "int",
+                        "elapsed": "float"}, {"D": n})
+    if dims["S"] != max(0, int(att["iteration"]) - n_warmup):
+        raise CheckpointError(f"{path}: damaged checkpoint ({dims['S']} draws after "
+                              f"{att['iteration']} transitions of which {n_warmup} warm-up); "
+                              "refusing to resume. Start a new run without --resume.")
+
+
 def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
               checkpoint=None, fingerprint="", resume=False, checkpoint_every=50,
               max_time=None, progress=False, stop_rule=None, check_every=50,
               max_draws=20_000, min_draws=200, max_depth=8, adapt_metric=True,
-              desc="chain", position=0, state_arc=STATE_ARC):
+              desc="chain", position=0, state_arc=STATE_ARC, check_only=False):
     """Run one NUTS chain on a :class:`~deepwell.fit.sampling.target.LogPosterior`.
 
     Parameters
@@ -147,6 +162,10 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
         Stars whose data span less than this fraction of their period move in
         their position and velocity (:mod:`deepwell.fit.sampling.coordinates`).
 
+    check_only : bool
+        With ``resume``: only read and check the checkpoint (CheckpointError if it
+        cannot be resumed) and return None.
+
     Returns
     -------
     ChainRun
@@ -160,7 +179,10 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
         if checkpoint is None:
             raise ValueError("resume=True needs a checkpoint file")
         arr, att = load_state(checkpoint, fingerprint, kind=_KIND)
-        rng.bit_generator.state = att["rng_state"]
+        _check_chain_state(checkpoint, arr, att, len(centre), n_warmup)
+        restore_rng(checkpoint, rng, att["rng_state"])
+        if check_only:
+            return None
         wt = WhitenedTarget(target, centre, prior_cov, cov_u=arr["metric"],
                             state_arc=state_arc)
         z, lp, grad = arr["z"], float(att["log_prob"]), arr["grad"]

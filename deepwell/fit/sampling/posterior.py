@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from deepwell.core.errors import DeepwellError
+from deepwell.core.text import plural
 from deepwell.core.units import UNITS
 from deepwell.fit.result import physical_labels, physical_vector
 
@@ -296,7 +297,8 @@ def _statement(runs, burns, tau, rhat, names, n_steps, max_time, n_ens, what="en
     if bad.size:
         worst = bad[np.argmax(np.nan_to_num(rhat[bad], nan=np.inf))]
         problems.append(f"R-hat across {n_ens} independent {what}s is {rhat[worst]:.3f} for "
-                        f"{names[worst]} (need < {RHAT_MAX}; {bad.size} parameter(s) fail)")
+                        f"{names[worst]} (need < {RHAT_MAX}; {plural(bad.size, 'parameter')} "
+                        f"{'fails' if bad.size == 1 else 'fail'})")
     if n_ens < 2:
         problems.append(f"only one {what}: R-hat across independent {what}s is unavailable")
     if ess is not None:
@@ -447,8 +449,9 @@ def sample_posterior(result, options=SamplerOptions(), checkpoint=None, resume=F
         n_walkers = int(n_walkers or 2 * ndim + 2)
         n_walkers += n_walkers % 2
         if n_walkers < 2 * ndim:
-            raise ValueError(f"n_walkers={n_walkers} is below twice the {ndim} sampled "
-                             "parameters")
+            raise SamplingError(f"{n_walkers} walkers per ensemble are fewer than twice the "
+                                f"{ndim} sampled parameters; use at least {2 * ndim} "
+                                "(--walkers)")
         thin = int(thin or max(1, ndim // 8))
         mv = _moves(moves)
     base_hash = fingerprint(
@@ -480,12 +483,16 @@ def sample_posterior(result, options=SamplerOptions(), checkpoint=None, resume=F
                 log_prob=target, p0=p0, n_steps=n_steps, moves=mv, thin=thin, checkpoint=ck,
                 checkpoint_every=checkpoint_every or 500, check_every=check_every or 500,
                 max_steps=max_steps or 100_000, desc=f"ensemble {k}", **common)))
+    if resume:  # every checkpoint is checked before any chain runs on
+        for fn, job in jobs:
+            fn(**job, check_only=True)
     runs = _run_all(jobs, processes)
     short = [k for k, r in enumerate(runs) if r.n_steps < 4]
     if short:
         what = "chain" if nuts else "ensemble"
         raise SamplingError(
-            f"{what}(s) {', '.join(map(str, short))} stopped with fewer than 4 kept draws "
+            f"{what}{'' if len(short) == 1 else 's'} {', '.join(map(str, short))} stopped with "
+            "fewer than 4 kept draws "
             f"({'; '.join(f'{r.stop_reason}' for r in runs)}): nothing to summarise; "
             "allow more time (--max-time) or steps, or continue with --resume")
     notes = _coordinates_notes(target, centre, cov, runs) if nuts else ()

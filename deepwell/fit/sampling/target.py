@@ -130,9 +130,11 @@ class LogPosterior:
         if not np.all(good):
             names = self.model.layout.names()
             bad = [names[i] for i in self.marginal[~good]]
-            note = (f"{', '.join(bad)} enter(s) the model non-linearly or with a coefficient "
+            note = (f"{', '.join(bad)} {'enters' if len(bad) == 1 else 'enter'} the model "
+                    "non-linearly or with a coefficient "
                     "that depends on the orbits (e.g. the exact redshift couples vz0 to the "
-                    "star's velocity), so it is sampled, not integrated out")
+                    f"star's velocity), so {'it is' if len(bad) == 1 else 'they are'} "
+                    "sampled, not integrated out")
             self.notes.append(note)
             if explicit:
                 warnings.warn(SamplingWarning(note), stacklevel=4)

@@ -18,7 +18,7 @@ import numpy as np
 from deepwell.model.epochs import model_at_epochs, star_vector, with_shared
 from deepwell.results.effect_sizes import star_effect_sizes
 
-from .style import MODEL_COLOUR, PALETTE, STYLE, new_figure, style_of, unique_names
+from .style import MODEL_COLOUR, PALETTE, STYLE, file_stem, new_figure, style_of, unique_names
 
 __all__ = ["redshift_curves",
            "precession_curves", "redshift_figure", "precession_figure", "effect_stem"]
@@ -28,9 +28,8 @@ STRENGTH_ONE, STRENGTH_ZERO = PALETTE[3], PALETTE[4]
 
 
 def effect_stem(kind, star):
-    """File stem ``<kind>_<star>`` with unsafe characters replaced."""
-    safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in str(star))
-    return f"{kind}_{safe}"
+    """File stem ``<kind>_<star>``, made safe by :func:`.style.file_stem`."""
+    return file_stem(kind, star)
 
 
 def _frame(model, vec, t, frame):

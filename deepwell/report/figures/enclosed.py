@@ -5,9 +5,11 @@
 pyplot state), saves PDF and PNG and frees the figure.
 """
 
+import textwrap
 from pathlib import Path
 
 import matplotlib
+import matplotlib.patches
 import numpy as np
 
 from deepwell.core.constants import PC_AU
@@ -43,16 +45,52 @@ def figure_data(profile, model_settings=None, models=("point", "plummer", "cusp"
         radii += list(profile.external.radius_au)
     x_range = (0.3 * r_s, 3.0 * max(radii))
     r_grid = np.geomspace(*x_range, n_grid)
+    measured = measured_window(profile)
     curves = {k: v for k, v in model_curves(r_grid, m, model_settings).items() if k in models}
     return {
         "r_grid": r_grid, "curves": curves, "r_s": r_s, "r_no_cluster": r_nc,
         "x_range": x_range, "galaxy_age_yr": galaxy_age_yr,
+        "x_measured": measured[0], "y_measured": measured[1],
         "r": np.array([x.r_mean_au for x in s]), "r_lo": np.array([x.r_peri_au for x in s]),
         "r_hi": np.array([x.r_apo_au for x in s]), "m": np.array([x.mass for x in s]),
         "m_err": np.array([x.mass_sigma for x in s]),
         "poor": np.array([x.poorly_constrained for x in s], bool),
         "names": [x.star for x in s],
     }
+
+
+def measured_window(profile, pad=0.15):
+    """Radii (au) and masses (Msun) that the measurements span, for the main panel.
+
+    Radii: from half the smallest pericentre to twice the largest apocentre (and
+    the external constraints' radii).  Masses: the joint point-mass band and the
+    per-star masses with their 1-sigma errors (well-constrained stars only, when
+    there are any), widened by ``pad`` of the span on each side.
+
+    Returns
+    -------
+    x : tuple of float
+        (r_min, r_max) in au.
+    y : tuple of float
+        (M_min, M_max) in Msun, M_min > 0.
+    """
+    s = profile.stars
+    m, sig = profile.joint_mass, profile.joint_mass_sigma
+    r_lo = [x.r_peri_au for x in s]
+    r_hi = [x.r_apo_au for x in s]
+    if profile.external is not None:
+        r_lo += list(profile.external.radius_au)
+        r_hi += list(profile.external.radius_au)
+    x = (0.5 * min(r_lo), 2.0 * max(r_hi)) if r_lo else (0.5, 2.0)
+    good = [t for t in s if not t.poorly_constrained] or list(s)
+    lows = [m - sig] + [t.mass - t.mass_sigma for t in good]
+    highs = [m + sig] + [t.mass + t.mass_sigma for t in good]
+    if profile.external is not None:
+        lows += list(profile.external.mass - profile.external.mass_err)
+        highs += list(profile.external.mass + profile.external.mass_err)
+    lo, hi = float(np.min(lows)), float(np.max(highs))
+    span = max(hi - lo, 1e-3 * m)
+    return x, (max(lo - pad * span, 1e-3 * m), hi + pad * span)
 
 
 def _stars(ax, ax_ratio, d, joint):
@@ -95,41 +133,65 @@ def plot_enclosed_mass(profile, path_stem, model_settings=None,
     m, sig = profile.joint_mass, profile.joint_mass_sigma
     with matplotlib.rc_context(STYLE):
         fig = new_figure((6.4, 5.6))
-        ax, axr = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [3, 1]})
-        fig.subplots_adjust(left=0.12, right=0.97, top=0.9, bottom=0.16, hspace=0.06)
+        ax = fig.add_axes((0.12, 0.40, 0.50, 0.46))
+        axr = fig.add_axes((0.12, 0.17, 0.50, 0.20), sharex=ax)
+        ax.tick_params(labelbottom=False)
         ax.axhspan(m - sig, m + sig, color=COLOUR["sky"], alpha=0.5, lw=0,
-                   label=f"joint point mass {m:.4g} +/- {sig:.2g} Msun")
+                   label=f"joint point mass\n{m:.4g} +/- {sig:.2g} Msun")
+        ax.axhline(m, color=COLOUR["black"], lw=0.8, zorder=2)
         for name, (label, curve) in d["curves"].items():
+            if name == "point":
+                continue  # drawn as the band and its centre line
             colour, ls = _MODEL_STYLE[name]
             ax.plot(d["r_grid"], curve, color=colour, ls=ls, label=label, zorder=3)
-        for a in (ax, axr):
-            a.axvspan(d["x_range"][0], d["r_no_cluster"], color=COLOUR["yellow"], alpha=0.35,
-                      lw=0, zorder=0)
-            a.axvline(d["r_s"], color=COLOUR["purple"], lw=1.0)
-        ax.fill_between([], [], color=COLOUR["yellow"], alpha=0.35,
-                        label=f"no dark cluster of this mass survives {d['galaxy_age_yr']:.2g} yr "
-                        "(Maoz 1998 criterion)")
-        ax.plot([], [], color=COLOUR["purple"], label="Schwarzschild radius")
         _stars(ax, axr, d, m)
         ext = profile.external
         if ext is not None:
             ax.errorbar(ext.radius_au, ext.mass, yerr=ext.mass_err, fmt="s", ms=4,
                         color=COLOUR["orange"], label="external constraints", zorder=4)
         axr.axhline(0.0, color=COLOUR["black"], lw=0.8)
-        ax.set(xscale="log", yscale="log", xlim=d["x_range"], ylabel="enclosed mass (Msun)")
+        ax.set(xscale="log", xlim=d["x_measured"], ylim=d["y_measured"],
+               ylabel="enclosed mass (Msun)")
+        ax.ticklabel_format(axis="y", style="sci", scilimits=(0, 0), useMathText=True)
         axr.set(xlabel="radius (au)", ylabel="M_star / M - 1")
         top = ax.secondary_xaxis("top", functions=(lambda r: r / PC_AU, lambda p: p * PC_AU))
         top.set_xlabel("radius (pc)")
         c = profile.consistency
         g = profile.consistency_good
-        ax.text(0.02, 0.97, f"per-star masses against one point mass:\n"
-                f"all stars chi2 = {c.chi2:.1f} for {c.dof} dof, p = {c.p_value:.2g}\n"
-                f"well constrained chi2 = {g.chi2:.1f} for {g.dof} dof, p = {g.p_value:.2g}",
-                transform=ax.transAxes, va="top", fontsize=7)
-        ax.legend(loc="upper left", bbox_to_anchor=(0.0, 0.8))
-        fig.text(0.01, 0.01, "Per-star errors exclude the distance error (all masses scale "
-                 "together). Model curves other than the point mass are illustrative.\n"
-                 "Open symbols: poorly constrained masses; their errors may be unreliable.",
-                 fontsize=6.5, va="bottom")
+        fig.text(0.12, 0.965, f"per-star masses against one point mass: all stars chi2 = "
+                 f"{c.chi2:.1f} for {c.dof} dof, p = {c.p_value:.2g}; well constrained chi2 = "
+                 f"{g.chi2:.1f} for {g.dof} dof, p = {g.p_value:.2g}", va="top", fontsize=6.5)
+        handles, labels = ax.get_legend_handles_labels()
+        _overview(fig.add_axes((0.73, 0.58, 0.25, 0.28)), d, m)
+        fig.legend(handles, [textwrap.fill(t, 40) for t in labels], loc="upper left",
+                   bbox_to_anchor=(0.655, 0.47), fontsize=6.0)
+        fig.text(0.01, 0.01, "Left: the radii and masses the stars measure (linear mass axis). "
+                 "Right: the whole range from the Schwarzschild radius (purple) outwards; "
+                 "yellow:\nno dark cluster of this mass survives the galaxy's age (Maoz 1998 "
+                 "criterion); grey box: the left panel. Per-star errors exclude the distance "
+                 "error.\nModel curves other than the point mass are illustrative. Open "
+                 "symbols: poorly constrained masses; their errors may be unreliable.",
+                 fontsize=6.0, va="bottom")
         stem = Path(path_stem)
         return save_figure(fig, stem.parent, stem.name)
+
+
+def _overview(ins, d, m):
+    """Log-log panel of the whole radius range: curves, Schwarzschild radius, excluded
+    clusters, the stars, and a box around the main panel's window."""
+    ins.axvspan(d["x_range"][0], d["r_no_cluster"], color=COLOUR["yellow"], alpha=0.35, lw=0,
+                zorder=0)
+    ins.axvline(d["r_s"], color=COLOUR["purple"], lw=1.0)
+    for name, (_, curve) in d["curves"].items():
+        colour, ls = _MODEL_STYLE[name]
+        ins.plot(d["r_grid"], curve, color=colour, ls=ls, lw=0.8, zorder=3)
+    ins.plot(d["r"], d["m"], "o", color=COLOUR["blue"], ms=2, zorder=5)
+    (x0, x1), (y0, y1) = d["x_measured"], d["y_measured"]
+    ins.add_patch(matplotlib.patches.Rectangle((x0, y0), x1 - x0, y1 - y0, fill=False,
+                                               ec="0.35", lw=0.8, zorder=6))
+    ins.set(xscale="log", yscale="log", xlim=d["x_range"], ylim=(0.5 * m, 5.0 * m),
+            xlabel="radius (au)", ylabel="enclosed mass (Msun)")
+    ins.set_title("whole range", fontsize=7, fontweight="normal")
+    ins.tick_params(labelsize=6)
+    ins.xaxis.label.set_size(6.5)
+    ins.yaxis.label.set_size(6.5)

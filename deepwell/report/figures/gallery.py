@@ -4,6 +4,8 @@ from pathlib import Path
 
 import matplotlib
 
+from deepwell.core.errors import OutputError
+
 from .effects import effect_figure_jobs
 from .orbits import figure_name, sky_figure, star_figure
 from .posterior import corner_figure, mass_distance_figure, predictive_draws
@@ -49,7 +51,9 @@ def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=
     jobs = [("sky", lambda: sky_figure(result, draws),
              "All orbits on the sky, centred on the mass (black cross). Frame-relative positions "
              "have the fitted reference-point drift subtracted, so every data set is "
-             "shown relative to the mass; lines are the fitted orbits. East is to the left."
+             "shown relative to the mass; lines are the fitted orbits. East is to the left. "
+             "Each star has its own pair of colour and marker shape (legend at right), so "
+             "stars stay apart in print and for colour-blind readers."
              + band)]
     for star in result.model.stars:
         jobs.append((figure_name(star), lambda s=star: star_figure(result, s, draws),
@@ -63,6 +67,10 @@ def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=
         jobs += effect_figure_jobs(result, effect_sizes)
     if posterior is not None:
         jobs += _posterior_jobs(result, posterior)
+    stems = [stem.casefold() for stem, _, _ in jobs]
+    if len(set(stems)) != len(stems):  # file_stem makes this (all but) impossible
+        twice = next(s for s in stems if stems.count(s) > 1)
+        raise OutputError(f"{folder}: two figures would share the file name '{twice}'")
     with matplotlib.rc_context(STYLE):
         for stem, build, caption in jobs:
             out[stem] = {"caption": caption, "files": save_figure(build(), folder, stem, formats)}

@@ -12,20 +12,29 @@ The sky axes follow the sky: east to the left, north up, equal scales.
 import matplotlib
 import numpy as np
 
+from deepwell.core.text import plural
 from deepwell.model.epochs import model_at_epochs, star_vector
 from deepwell.model.kernels.orbit import keplerian_track
 from deepwell.model.quality import POOR_COVERAGE
 
 from .posterior import sky_draw_tracks, velocity_band
-from .style import MASS_MARKER, MODEL_COLOUR, PALETTE, STYLE, new_figure, style_of, unique_names
+from .style import (
+    MASS_MARKER,
+    MODEL_COLOUR,
+    PALETTE,
+    STYLE,
+    file_stem,
+    new_figure,
+    style_of,
+    unique_names,
+)
 
 __all__ = ["mass_relative_positions", "sky_figure", "star_figure", "figure_name"]
 
 
 def figure_name(star):
-    """File stem of a star's figure: ``star_<name>`` with unsafe characters replaced."""
-    safe = "".join(c if c.isalnum() or c in "-_." else "_" for c in str(star))
-    return f"star_{safe}"
+    """File stem of a star's figure: ``star_<name>``, made safe by :func:`.style.file_stem`."""
+    return file_stem("star", star)
 
 
 def mass_relative_positions(result):
@@ -132,7 +141,7 @@ def sky_figure(result, draws=None):
                 ax.plot(tracks[k].east, tracks[k].north, color=colour, lw=0.9, zorder=2)
                 sel = m.pos.star == k
                 ax.errorbar(ra[sel], dec[sel], xerr=m.pos.ra_err[sel], yerr=m.pos.dec_err[sel],
-                            fmt=marker, color=colour, ms=2.6, mew=0.3, mec="black",
+                            fmt=marker, color=colour, ms=4.2, mew=0.4, mec="black",
                             elinewidth=0.5, zorder=3, label=star)
             if half is None:
                 _square_limits(ax, xs, ys)
@@ -141,8 +150,9 @@ def sky_figure(result, draws=None):
                 _square_limits(ax, [-half, half], [-half, half], pad=0.0)
                 ax.set_title(f"zoom: central ±{half:.0f} mas", fontweight="normal")
         ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0,
-                  markerscale=1.6)
-        fig.suptitle(f"Orbits of {len(m.stars)} stars around the central mass",
+                  markerscale=1.3, ncols=1 if len(m.stars) <= 24 else 2)
+        fig.suptitle(f"{'Orbit' if len(m.stars) == 1 else 'Orbits'} of "
+                     f"{plural(len(m.stars), 'star')} around the central mass",
                      fontsize=11, fontweight="bold")
     return fig
 

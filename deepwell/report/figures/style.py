@@ -7,6 +7,8 @@ written by :func:`save_figure` as PDF (vector) and PNG with fixed metadata, so
 identical input gives identical files.
 """
 
+import hashlib
+import re
 from pathlib import Path
 
 import matplotlib
@@ -15,7 +17,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 __all__ = ["PALETTE", "MARKERS", "MODEL_COLOUR", "COLOUR", "MASS_MARKER", "STYLE", "FORMATS",
-           "style_of", "new_figure", "unique_names", "save_figure"]
+           "style_of", "new_figure", "unique_names", "file_stem", "save_figure"]
 
 #: File formats of every figure: PDF (vector) and PNG (raster at STYLE["savefig.dpi"]).
 FORMATS = ("pdf", "png")
@@ -72,7 +74,11 @@ STYLE = {
 
 
 def style_of(k):
-    """Colour and marker of item k; both change, so colour is never the only cue."""
+    """Colour and marker of item k; both change, so colour is never the only cue.
+
+    The first ``len(PALETTE) * len(MARKERS)`` (49) items all get different
+    (colour, marker) pairs, and neighbours differ in both.
+    """
     return PALETTE[k % len(PALETTE)], MARKERS[(k // len(PALETTE) + k) % len(MARKERS)]
 
 
@@ -88,6 +94,43 @@ def new_figure(size):
 def unique_names(names):
     """Names in order of first appearance, each once."""
     return list(dict.fromkeys(names))
+
+
+#: Longest name kept whole in a file stem (characters); far below the 255 bytes
+#: most file systems allow for a file name (common practice).
+STEM_NAME_MAX = 60
+_PLAIN = re.compile(r"[a-z0-9][a-z0-9._-]*")
+
+
+def file_stem(prefix, name):
+    """File stem ``<prefix>_<name>`` that is safe, bounded, unique and stable per name.
+
+    A name of lower-case ASCII letters, digits, ``.``, ``_`` and ``-`` (starting
+    with a letter or digit) of at most :data:`STEM_NAME_MAX` characters is kept as
+    it is.  Any other name is written with its unsafe characters replaced by ``_``,
+    cut to :data:`STEM_NAME_MAX` characters, and followed by ``-`` and 10
+    hexadecimal digits of the BLAKE2b hash of the name's UTF-8 bytes: so ``a/b``
+    and ``a b`` get different stems, ``A`` and ``a`` differ on a file system that
+    ignores case, and the same name always gets the same stem.
+
+    Parameters
+    ----------
+    prefix : str
+        Figure family, e.g. ``"star"``.
+    name : str
+        Star (or data-set) name as given in the tables.
+
+    Returns
+    -------
+    str
+        At most ``len(prefix) + 72`` characters.
+    """
+    name = str(name)
+    if len(name) <= STEM_NAME_MAX and _PLAIN.fullmatch(name):
+        return f"{prefix}_{name}"
+    safe = "".join(c if c.isascii() and (c.isalnum() or c in "-_.") else "_" for c in name)
+    digest = hashlib.blake2b(name.encode("utf-8"), digest_size=5).hexdigest()
+    return f"{prefix}_{safe[:STEM_NAME_MAX]}-{digest}"
 
 
 def _metadata(fmt):
