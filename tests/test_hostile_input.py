@@ -80,7 +80,7 @@ def test_long_and_colliding_star_names_each_get_their_own_figures(tmp_path, smal
     assert main(["fit", str(scen), "--out", str(out), "-q"]) == 0
     report = (out / "report.md").read_text()
     # each star's figure: an image line followed by its caption "*Star NAME: ..."
-    found = dict(re.findall(r"!\[(star_[^\]]+)\]\(figures/[^)]+\.png\)\n\n\*Star (.+?): sky",
+    found = dict(re.findall(r"!\[[^\]]+\]\(figures/(star_[^)]+)\.png\)\n\n\*Star (.+?): sky",
                             report))
     stars = ["a/b", "a b", "t-3", long_name]
     assert sorted(found.values()) == sorted(stars)
