@@ -228,3 +228,15 @@ def test_a_mistyped_option_gets_the_closest_real_one(scenario, tmp_path, capsys)
     err = capsys.readouterr().err
     assert "unrecognized arguments: --sampel" in err and "did you mean --sample?" in err
     assert not (tmp_path / "out").exists()
+
+
+def test_settings_for_a_star_not_in_the_data_are_reported_not_silently_ignored(scenario,
+                                                                               tmp_path):
+    # Common practice: a settings section that matches nothing is most likely a typo.
+    settings = tmp_path / "s.toml"
+    settings.write_text("[stars.t-99]\na = 100.0\n")
+    out = tmp_path / "out"
+    assert main(["fit", str(scenario), "--out", str(out), "--settings", str(settings),
+                 "--newtonian", "--no-figures", "-q"]) == 0
+    notes = json.loads((out / "summary.json").read_text())["notes"]
+    assert any("t-99" in n and "not in the data" in n for n in notes)

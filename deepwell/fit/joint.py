@@ -61,6 +61,11 @@ def fit_joint(observations, settings, progress=None):
     start = find_start(model.keplerian(), settings)  # effects: see deepwell.model.effects
     model, start_vec = model.start_from(start.vec, settings)
     start.notes.extend(model.effect_notes())
+    dropped = {star for star, _, _ in observations.dropped_stars}
+    unknown = [s for s in settings.stars if s not in model.stars and s not in dropped]
+    if unknown:
+        start.notes.append("the settings name star(s) not in the data, whose settings were "
+                           "not used: " + ", ".join(unknown) + " (a misspelt name?)")
     lo, hi, free = bounds(model, settings)
     unused = _unconstrained_shared(model)
     for name in unused:
