@@ -41,6 +41,11 @@ class GroupConfig:
     integrated: bool
     n_steps: int = 0      # steps per sweep (integrated groups)
     directions: tuple = (1.0, -1.0)  # sweeps run from the apocentre epoch
+    planar: bool = False  # scaled planar sweeps (jax_kernels.planar_sweep)
+    fwd: tuple = ()       # planar: local indices of the stars swept forward / backward
+    bwd: tuple = ()
+    n_fwd: int = 0
+    n_bwd: int = 0
 
 
 def _elements(shared, blk, idx):
@@ -128,9 +133,15 @@ def star_rows(shared, blk, data, idx, cfg, fx):
     dist = shared[idx["distance"]]
     t = data["t"]
     if cfg.integrated:
-        east, north, v_z, v_sq, r_au, covered = _pn_track(shared, el, t, idx, cfg, fx)
+        track = _pn_track(shared, el, t, idx, cfg, fx)
     else:
-        east, north, v_z, v_sq, r_au, covered = _kepler_track(el, t, dist, fx["romer"])
+        track = _kepler_track(el, t, dist, fx["romer"])
+    return _residual_tail(shared, data, idx, fx, *track)
+
+
+def _residual_tail(shared, data, idx, fx, east, north, v_z, v_sq, r_au, covered):
+    """Whitened residual pairs from a star's track at its rows (see :func:`star_rows`)."""
+    t = data["t"]
     dt = t - fx["reference_epoch"]
     ra = east + (shared[idx["x0"]] + shared[idx["vx0"]] * dt) * data["frame"]
     dec = north + (shared[idx["y0"]] + shared[idx["vy0"]] * dt) * data["frame"]
@@ -150,6 +161,59 @@ def star_rows(shared, blk, data, idx, cfg, fx):
     return jnp.where(covered[:, None] | ~data["valid"][:, None], out, jnp.nan)
 
 
+def planar_star_rows(shared, blk, data, sweeps, idx, fx):
+    """:func:`star_rows` for an integrated star from its scaled planar sweeps.
+
+    ``sweeps`` holds, per direction (+1, -1), the star's step ends ``ys``, ``fs``
+    (n + 1, 5) of :func:`jax_kernels.planar_sweep` and a flag ``has`` (False:
+    no sweep that way; rows there are uncovered).
+    """
+    el = _elements(shared, blk, idx)
+    mass, dist = shared[idx["mass"]], shared[idx["distance"]]
+    a_au = el["a"] * 1e-3 * dist
+    gm = mass * GM_SUN_AU3_PER_YR2
+    t_unit = jnp.sqrt(a_au**3 / gm)
+    A, B, F, G, C, H = K.thiele_innes(1.0, el["inc"], el["node"], el["peri_arg"])
+    p_hat, q_hat = jnp.stack([B, A, C]), jnp.stack([G, F, H])
+    t_ref = el["t_peri"] + 0.5 * el["period"]
+    tau = data["t"] - t_ref
+    romer = fx["romer"]
+    inv_c = K.INV_C if romer else 0.0
+
+    def physical(y, f):
+        """Scaled planar rows (., 5) -> 7-vectors (position au, velocity au/yr, t yr) and f."""
+        pos = a_au * (y[:, 0:1] * p_hat + y[:, 1:2] * q_hat)
+        vel = a_au / t_unit * (y[:, 2:3] * p_hat + y[:, 3:4] * q_hat)
+        acc = a_au / t_unit**2 * ((f[:, 2:3] / f[:, 4:5]) * p_hat + (f[:, 3:4] / f[:, 4:5]) * q_hat)
+        y7 = jnp.concatenate([pos, vel, t_unit * y[:, 4:5]], axis=1)
+        f7 = jnp.concatenate([jnp.zeros_like(pos), acc, jnp.ones_like(y[:, 4:5])], axis=1)
+        return y7, f7
+
+    ys0 = sweeps[0]["ys"]
+    start = a_au * (ys0[0, 0] * C + ys0[0, 1] * H) * inv_c
+    pos = vel = None
+    covered = jnp.zeros(tau.shape, bool)
+    for sign, sw in zip((1.0, -1.0), sweeps, strict=True):
+        ys, fs = sw["ys"], sw["fs"]
+        obs = t_unit * ys[:, 4] + a_au * (ys[:, 0] * C + ys[:, 1] * H) * inv_c
+        k, cov = K.locate(obs, sign, tau)
+        ya, fa = physical(ys[k - 1], fs[k - 1])
+        yb, fb = physical(ys[k], fs[k])
+        p, v, _ = K.dense_rows(ya, fa, yb, fb, obs[k - 1], obs[k], tau, light_time=romer)
+        mine = (tau >= start) if sign > 0 else (tau < start)
+        if pos is None:
+            pos, vel = p, v
+        else:
+            pos = jnp.where(mine[:, None], p, pos)
+            vel = jnp.where(mine[:, None], v, vel)
+        covered = covered | (mine & cov & sw["has"])
+    mas_per_au = 1e3 / dist
+    vk = vel * KMS_PER_AU_PER_YR
+    r_au = jnp.sqrt(jnp.sum(pos * pos, axis=-1))
+    return _residual_tail(shared, data, idx, fx, pos[:, 0] * mas_per_au, pos[:, 1] * mas_per_au,
+                          vk[:, 2], jnp.sum(vk * vk, axis=-1), r_au, covered)
+
+
 class JaxJointModel:
     """JAX residuals, chi-square and gradients of a deepwell JointModel.
 
@@ -165,7 +229,8 @@ class JaxJointModel:
         Plain Keplerian model (every effect off), as ``model.keplerian()``.
     """
 
-    def __init__(self, model, vec, integrated=None, keplerian=False, directions="both"):
+    def __init__(self, model, vec, integrated=None, keplerian=False, directions="both",
+                 planar=False):
         if model.datasets is not None or model.priors or model.effects.extended_mass:
             raise NotImplementedError("prototype: no data-set terms, priors or extended mass")
         lay = model.layout
@@ -193,11 +258,15 @@ class JaxJointModel:
             members = tuple(int(k) for k in np.flatnonzero(integ == flag))
             if members:
                 self.groups.append(GroupConfig(members, flag))
-        self._size_steps(np.asarray(vec, float), directions)
+        if planar:
+            self._size_planar(np.asarray(vec, float), directions)
+        else:
+            self._size_steps(np.asarray(vec, float), directions)
         self.residual_pairs = jax.jit(self._pairs)
         self.chi2 = jax.jit(self._chi2)
         self.grad_reverse = jax.jit(jax.value_and_grad(self._chi2))
-        self.grad_forward = jax.jit(self._chi2_and_grad_forward)
+        # planar sweeps carry a custom VJP (forward inside): no whole-model forward mode there
+        self.grad_forward = None if planar else jax.jit(self._chi2_and_grad_forward)
 
     # ------------------------------------------------------------ set-up
     def _build_rows(self, model):
@@ -285,6 +354,77 @@ class JaxJointModel:
             out.append(GroupConfig(g.stars, True, n, dirs))
         self.groups = out
 
+    def _size_planar(self, vec, directions, n_try=512):
+        """Planar sweeps: which stars go which way, and steps per direction (+ margin)."""
+        lay = self.model.layout
+        el = lay.elements(vec)
+        mass, dist = lay.shared(vec, "mass"), lay.shared(vec, "distance")
+        f_sp = lay.shared(vec, "f_sp") if self.fx["precession"] else 0.0
+        sweep = jax.jit(K._planar_sweep_primal, static_argnums=(2, 3, 4))
+        inv_c = K.INV_C if self.fx["romer"] else 0.0
+        out = []
+        for g in self.groups:
+            if not g.integrated:
+                out.append(g)
+                continue
+            need = {1.0: [], -1.0: []}
+            for j, k in enumerate(g.stars):
+                a_au = el["a"][k] * 1e-3 * dist
+                gm = mass * GM_SUN_AU3_PER_YR2
+                t_unit = np.sqrt(a_au**3 / gm)
+                kappa = f_sp * gm / (C_AU_PER_YR**2 * a_au)
+                consts = np.asarray(K.thiele_innes(1.0, el["inc"][k], el["node"][k],
+                                                   el["peri_arg"][k]))
+                t = self.data["t"][k][self.data["valid"][k]]
+                tau = t - (el["t_peri"][k] + 0.5 * el["period"][k])
+                start = a_au * (-(1.0 + el["e"][k])) * consts[4] * inv_c
+                for sign in (1.0, -1.0):
+                    mine = tau[tau >= start] if sign > 0 else tau[tau < start]
+                    if directions == "both" or mine.size:
+                        n = 0
+                        if mine.size:
+                            ys, _ = sweep(el["e"][k], kappa, sign, n_try, self.fx["steps_per_orbit"])
+                            ys = np.asarray(ys)
+                            obs = t_unit * ys[:, 4] + a_au * (ys[:, 0] * consts[4]
+                                                              + ys[:, 1] * consts[5]) * inv_c
+                            if sign * obs[-1] < np.max(sign * mine):
+                                raise RuntimeError("planar sizing: increase n_try")
+                            n = int(np.searchsorted(sign * obs, np.max(sign * mine)))
+                        need[sign].append((j, n))
+            fwd = tuple(j for j, _ in need[1.0])
+            bwd = tuple(j for j, _ in need[-1.0])
+            n_f = max([n for _, n in need[1.0]], default=-STEP_MARGIN) + STEP_MARGIN
+            n_b = max([n for _, n in need[-1.0]], default=-STEP_MARGIN) + STEP_MARGIN
+            out.append(GroupConfig(g.stars, True, max(n_f, n_b), planar=True, fwd=fwd, bwd=bwd,
+                                   n_fwd=n_f, n_bwd=n_b))
+        self.groups = out
+
+    def _planar_group_pairs(self, shared, blocks, g):
+        sel = np.asarray(g.stars)
+        blk = blocks[sel]
+        el = jax.vmap(lambda b: _elements(shared, b, self.idx))(blk)
+        mass, dist = shared[self.idx["mass"]], shared[self.idx["distance"]]
+        f_sp = shared[self.idx["f_sp"]] if self.fx["precession"] else 0.0
+        a_au = el["a"] * 1e-3 * dist
+        gm = mass * GM_SUN_AU3_PER_YR2
+        kappa = f_sp * gm / (C_AU_PER_YR**2 * a_au)
+        ns = len(sel)
+        sweeps = []
+        for sign, members, n in ((1.0, g.fwd, g.n_fwd), (-1.0, g.bwd, g.n_bwd)):
+            has = jnp.asarray([j in members for j in range(ns)])
+            if members:
+                m = np.asarray(members)
+                ys, fs = jax.vmap(lambda e, k, sign=sign, n=n: K.planar_sweep(
+                    e, k, sign, n, self.fx["steps_per_orbit"]))(el["e"][m], kappa[m])
+                slot = np.array([members.index(j) if j in members else 0 for j in range(ns)])
+                sweeps.append(dict(ys=ys[slot], fs=fs[slot], has=has))
+            else:  # no star goes this way: a dummy two-point sweep, never covering a row
+                dummy = jnp.broadcast_to(jnp.array([[1.0, 0.0, 0.0, 1.0, 0.0],
+                                                    [1.0, 0.0, 0.0, 1.0, 1.0]]), (ns, 2, 5))
+                sweeps.append(dict(ys=dummy, fs=jnp.ones((ns, 2, 5)), has=has))
+        f = jax.vmap(partial(planar_star_rows, idx=self.idx, fx=self.fx), in_axes=(None, 0, 0, 0))
+        return f(shared, blk, self._group_data(g), sweeps)
+
     # --------------------------------------------------------- functions
     def _split(self, vec):
         shared = vec[: self.n_shared]
@@ -292,6 +432,8 @@ class JaxJointModel:
         return shared, blocks
 
     def _group_pairs(self, shared, blocks, g):
+        if g.planar:
+            return self._planar_group_pairs(shared, blocks, g)
         f = jax.vmap(partial(star_rows, idx=self.idx, cfg=g, fx=self.fx), in_axes=(None, 0, 0))
         return f(shared, blocks[np.asarray(g.stars)], self._group_data(g))
 
@@ -349,7 +491,11 @@ class JaxJointModel:
     def describe(self):
         parts = []
         for g in self.groups:
-            kind = (f"integrated ({g.n_steps} steps x {len(g.directions)} sweeps)"
-                    if g.integrated else "Keplerian")
+            if g.planar:
+                kind = (f"integrated planar ({len(g.fwd)} forward sweeps x {g.n_fwd} steps, "
+                        f"{len(g.bwd)} backward x {g.n_bwd})")
+            else:
+                kind = (f"integrated ({g.n_steps} steps x {len(g.directions)} sweeps)"
+                        if g.integrated else "Keplerian")
             parts.append(f"{len(g.stars)} stars {kind}")
         return ", ".join(parts) + f"; {self.row_max} padded rows per star"
