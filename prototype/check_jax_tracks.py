@@ -27,12 +27,11 @@ K.enable_x64()
 import jax  # noqa: E402
 import jax.numpy as jnp  # noqa: E402
 import numpy as np  # noqa: E402
+from jax_model import JaxJointModel, _elements  # noqa: E402
 
 import deepwell  # noqa: E402
-from deepwell.core.constants import KMS_PER_AU_PER_YR  # noqa: E402
 from deepwell.model.kernels.kepler import solve_kepler  # noqa: E402
 from deepwell.model.kernels.post_newtonian import pn_track  # noqa: E402
-from jax_model import JaxJointModel, _elements  # noqa: E402
 
 ROOT = HERE.parent
 
@@ -162,7 +161,7 @@ def main(argv=None):
     check_residuals(jm, model, vec, "relativistic residuals")
     jp = JaxJointModel(model, vec, planar=True)
     print("planar JAX model:", jp.describe())
-    d = check_residuals(jp, model, vec, "relativistic residuals, scaled planar sweeps")
+    check_residuals(jp, model, vec, "relativistic residuals, scaled planar sweeps")
     rp = np.asarray(jp.residuals(vec)) - model.data_residuals(vec)
     npos = model.pos.n
     dpos = max(np.max(np.abs(rp[:npos] * model.pos.ra_err)),

@@ -22,12 +22,11 @@ from functools import partial
 
 import jax
 import jax.numpy as jnp
+import jax_kernels as K
 import numpy as np
 
-from deepwell.core.constants import GM_SUN_AU3_PER_YR2, KEPLER_K, KMS_PER_AU_PER_YR, C_AU_PER_YR
+from deepwell.core.constants import C_AU_PER_YR, GM_SUN_AU3_PER_YR2, KEPLER_K, KMS_PER_AU_PER_YR
 from deepwell.core.parameters import MAX_ECC
-
-import jax_kernels as K
 
 #: Extra steps beyond the largest need found at set-up, per sweep.
 STEP_MARGIN = 4
@@ -77,7 +76,8 @@ def _kepler_track(el, t, dist, romer, n_newton=2):
     mas_to_au = dist * 1e-3
     r_au = jnp.sqrt(east**2 + north**2 + z**2) * mas_to_au
     v_kms = mas_to_au * KMS_PER_AU_PER_YR
-    return east, north, vz * v_kms, (ve**2 + vn**2 + vz**2) * v_kms**2, r_au, jnp.ones(t.shape, bool)
+    v_sq = (ve**2 + vn**2 + vz**2) * v_kms**2
+    return east, north, vz * v_kms, v_sq, r_au, jnp.ones(t.shape, bool)
 
 
 def _pn_setup(shared, el, idx, steps_per_orbit, precession):
@@ -383,7 +383,8 @@ class JaxJointModel:
                     if directions == "both" or mine.size:
                         n = 0
                         if mine.size:
-                            ys, _ = sweep(el["e"][k], kappa, sign, n_try, self.fx["steps_per_orbit"])
+                            ys, _ = sweep(el["e"][k], kappa, sign, n_try,
+                                          self.fx["steps_per_orbit"])
                             ys = np.asarray(ys)
                             obs = t_unit * ys[:, 4] + a_au * (ys[:, 0] * consts[4]
                                                               + ys[:, 1] * consts[5]) * inv_c
