@@ -2,7 +2,7 @@
 
 Run from the repository root (in a venv with jax):
 
-    python prototype/check_jax_tracks.py [--fit-cache FILE]
+    python tests/benchmarks/jax_prototype/check_jax_tracks.py [--fit-cache FILE]
 
 1. Kepler solver against deepwell.model.kernels.kepler.solve_kepler on a grid up to e = 0.9999.
 2. Per integrated star: JAX 1PN track (with Romer delay) against

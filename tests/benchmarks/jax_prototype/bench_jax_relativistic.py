@@ -3,7 +3,7 @@
 Plain script (prints numbers and ratios, asserts nothing about time).  Run from
 the repository root in a venv that has jax (e.g. /work/venv-jax):
 
-    python prototype/bench_jax_relativistic.py [--repeat N] [--rounds R] [--fit-cache FILE]
+    python tests/benchmarks/jax_prototype/bench_jax_relativistic.py [--repeat N] [--rounds R] [--fit-cache FILE]
 
 One run measures, on the rich demo fitted once with the default settings
 (Romer delay, exact redshift, 1PN for the stars whose precession matters):
@@ -16,7 +16,7 @@ One run measures, on the rich demo fitted once with the default settings
      for the 1 + n_groups stack of one finite-difference gradient;
    * the same two model calls for the Keplerian twin (``model.keplerian()``)
      and for the model with all 12 stars integrated.
-2. JAX prototype (prototype/jax_model.py), float64: chi-square alone and
+2. JAX prototype (tests/benchmarks/jax_prototype/jax_model.py), float64: chi-square alone and
    chi-square + gradient for
    * the 3-d mirror of pn_track (state in sky axes, 2 sweeps per star padded to
      one step count): reverse mode (``jax.grad`` through ``lax.scan``) and
