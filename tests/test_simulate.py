@@ -16,6 +16,7 @@ import pytest
 
 from deepwell.cli import main
 from deepwell.core.errors import OutputError, SettingsError
+from deepwell.tables.observations import read_observations
 from deepwell.tools.simulate import (
     OUTPUT_FILES,
     load_description,
@@ -324,3 +325,17 @@ def test_fit_of_a_simulated_scenario_uses_the_reference_epoch_it_states(tmp_path
     assert "states reference_epoch = 2010" in capsys.readouterr().err
     assert json.loads((tmp_path / "rep2" / "summary.json").read_text())["reference_epoch"] \
         == 2000.0
+
+
+def test_high_cadence_campaigns_give_no_duplicate_rows(tmp_path):
+    # A star is observed at most once per epoch by one data set (our reader refuses
+    # duplicates): 2000 epochs per year with the default jitter must stay unique after
+    # the 1e-5 yr rounding, also where jittered epochs pile up at the campaign's ends.
+    dense = BASE.replace("cadence = 40.0", "cadence = 2000.0").replace(
+        "start = 2000.0\nend = 2025.0", "start = 2000.0\nend = 2002.0")
+    data = simulate(load_description(_write(tmp_path, dense)))
+    pos = data.positions
+    assert len(pos) > 3 * 3000
+    assert not pos.duplicated(["star", "epoch", "dataset"]).any()
+    folder = write_scenario(_write(tmp_path, dense, "e.toml"), tmp_path / "scen")
+    assert len(read_observations(folder).positions) == len(pos)

@@ -371,7 +371,10 @@ def _observe(description, camp, rng):
     n = max(1, math.floor((camp.end - camp.start) * camp.cadence + 1e-9))
     nominal = camp.start + (np.arange(n) + 0.5) / camp.cadence
     jitter = rng.uniform(-1.0, 1.0, n) * camp.scatter_days / 365.25
-    epochs = np.round(np.sort(np.clip(nominal + jitter, camp.start, camp.end)), 5)
+    # unique after rounding: at high cadence, jittered epochs can coincide (or pile up at
+    # the campaign's ends), and one star cannot be observed twice at one epoch by one set
+    epochs = np.unique(np.round(np.clip(nominal + jitter, camp.start, camp.end), 5))
+    n = epochs.size
     t, idx = np.repeat(epochs, len(stars)), np.tile(np.arange(len(stars)), n)
     keep = rng.uniform(size=t.size) < camp.coverage
     el = {k: np.array([getattr(s, k) for s in stars])[idx] for k in ELEMENT_KEYS}

@@ -3,7 +3,8 @@
 Plain script (prints numbers and ratios, asserts nothing about time).  Run from
 the repository root in a venv that has jax (e.g. /work/venv-jax):
 
-    python tests/benchmarks/jax_prototype/bench_jax_relativistic.py [--repeat N] [--rounds R] [--fit-cache FILE]
+    python tests/benchmarks/jax_prototype/bench_jax_relativistic.py \
+        [--repeat N] [--rounds R] [--fit-cache FILE]
 
 One run measures, on the rich demo fitted once with the default settings
 (Romer delay, exact redshift, 1PN for the stars whose precession matters):
