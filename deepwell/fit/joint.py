@@ -8,11 +8,14 @@ whitened residuals with bounds, fixed parameters and Gaussian priors
 :class:`~deepwell.fit.result.FitResult`.
 """
 
+import dataclasses
+
 import numpy as np
 
 from deepwell.core.errors import InputError
 from deepwell.core.parameters import SHARED, STAR_INTERNAL
 from deepwell.core.text import plural
+from deepwell.model.datasets import mark_excluded
 from deepwell.model.joint import JointModel, Prior
 from deepwell.model.quality import POOR_COVERAGE, POOR_REDUCED_CHI2, phase_coverage
 
@@ -58,7 +61,7 @@ def fit_joint(observations, settings, progress=None):
     say = progress or (lambda text: None)
     model = build_model(observations, settings)
     say(f"searching starting orbits for {plural(len(model.stars), 'star')}")
-    start = find_start(model.keplerian(), settings)  # effects: see deepwell.model.effects
+    start = find_start(_start_model(model), settings)  # effects: see deepwell.model.effects
     model, start_vec = model.start_from(start.vec, settings)
     start.notes.extend(model.effect_notes())
     dropped = {star for star, _, _ in observations.dropped_stars}
@@ -107,6 +110,49 @@ def fit_joint(observations, settings, progress=None):
         notes.append(f"the optimiser stopped without convergence: {sol.message}")
     return assemble_result(model, vec, free, settings, observations, notes,
                            converged=bool(sol.success), nfev=int(sol.nfev))
+
+
+#: The start search uses at most this many position (and velocity) rows per star,
+#: spread evenly over the star's epochs; the joint fit then uses every row.
+START_ROWS = 400
+
+
+def thinned(frame, max_rows=START_ROWS):
+    """At most ``max_rows`` rows per star, evenly spread over its epochs (order kept)."""
+    if len(frame) == 0 or frame.groupby("star", sort=False).size().max() <= max_rows:
+        return frame
+    keep = []
+    for _, rows in frame.groupby("star", sort=False):
+        order = np.argsort(rows["epoch"].to_numpy(float), kind="stable")
+        if len(rows) > max_rows:
+            order = order[np.unique(np.round(np.linspace(0, len(rows) - 1, max_rows))
+                                    .astype(int))]
+        keep.append(rows.index.to_numpy()[order])
+    return frame.loc[np.sort(np.concatenate(keep))]
+
+
+def _start_model(model):
+    """The Keplerian twin of ``model`` for the start search, on a thinned copy of large data.
+
+    The search costs grow with the rows; a few hundred epochs per star spread over
+    the arc fix a starting orbit as well as all of them do.  Small data sets are
+    used whole (the same model as before).
+    """
+    kep = model.keplerian()
+    obs = model.observations
+    counts = [np.bincount(rows.star, minlength=len(model.stars)).max()
+              for rows in (model.pos, model.vel) if rows is not None and rows.n]
+    if not counts or max(counts) <= START_ROWS:
+        return kep
+    rows = model.dataset_config.exclude_rows if model.dataset_config is not None else ()
+    frames = []
+    for frame, kind in ((obs.positions, "positions"), (obs.velocities, "velocities")):
+        frame, _ = mark_excluded(frame, rows, kind)
+        if len(frame):
+            frame = frame[~frame["exclude"].to_numpy(bool)]
+        frames.append(thinned(frame))
+    small = dataclasses.replace(obs, positions=frames[0], velocities=frames[1])
+    return kep.replace(observations=small, datasets=None)
 
 
 def _alias_retry(model, vec, sol, free, lo, hi, factors=(2.0, 0.5, 3.0, 1.0 / 3.0)):
