@@ -78,7 +78,8 @@ def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=No
     analyses : deepwell.results.Analyses
     """
     say = progress or (lambda text: None)
-    obs = read_observations(scenario, min_epochs=settings.min_epochs, strict=job.strict)
+    obs = read_observations(scenario, min_epochs=settings.min_epochs, strict=job.strict,
+                            columns=settings.columns)
     external = read_external_constraints(job.external) if job.external else None
     tmp = prepare_output(out, replace=replace)
     try:
