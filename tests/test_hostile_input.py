@@ -21,6 +21,7 @@ from deepwell.core.errors import InputError
 from deepwell.core.text import plural
 from deepwell.fit.sampling.backend import CheckpointError
 from deepwell.fit.sampling.ensemble import LineProgress, make_progress, run_ensemble
+from deepwell.model.kernels.relativity import redshift_velocity
 from deepwell.report.figures.style import MARKERS, PALETTE, file_stem, style_of
 from deepwell.tables.observations import read_velocities
 from tests.conftest import SMALL_SCENARIO
@@ -304,3 +305,18 @@ def test_impossible_command_line_number_is_refused_before_any_work(tmp_path, cap
     assert "Traceback" not in err
     assert f"argument {option}" in err.splitlines()[-1]
     assert not (tmp_path / "rep").exists()
+
+
+def test_redshift_of_a_trial_orbit_faster_than_light_is_nan_without_a_warning():
+    # special relativity: gamma = (1 - v^2/c^2)^(-1/2) has no value for v >= c (common
+    # practice); a fitter's trial orbit may get there, and the user must not see numpy's
+    # RuntimeWarning for it (warnings are errors in this suite)
+    c = const.c.to_value("km/s")
+    v = np.array([0.5 * c, 1.01 * c])
+    rv = redshift_velocity(v_z=v, v_sq=v**2, r_au=np.array([1e3, 1e3]), mass=4e6)
+    # below c the exact form holds: 1 + z = gamma (1 + v/c) (1 - R_s/r)^(-1/2), R_s from
+    # astropy's G, M_sun and c
+    r_s_au = (2 * const.G * 4e6 * const.M_sun / const.c**2).to_value("au")
+    expected = c * (1.0 / np.sqrt(1 - 0.25) * 1.5 / np.sqrt(1 - r_s_au / 1e3) - 1.0)
+    assert rv[0] == pytest.approx(expected, rel=1e-9)
+    assert np.isnan(rv[1])

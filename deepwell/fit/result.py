@@ -201,7 +201,8 @@ def assemble_result(model, vec, free, settings, observations, notes=(), converge
     if rank_def and not any("not constrained by the data" in n for n in notes):
         notes.append(f"{plural(rank_def, 'parameter combination')} "
                      f"{'is' if rank_def == 1 else 'are'} not constrained by the data "
-                     "(singular covariance); their errors are not meaningful")
+                     f"(singular covariance); {'its' if rank_def == 1 else 'their'} errors "
+                     "are not meaningful")
         warnings.warn(FitWarning(notes[-1]), stacklevel=2)
     return FitResult(
         model=model,

@@ -158,7 +158,7 @@ def load_fit(report_dir, scenario=None):
         settings = parse_settings(state["settings"], file=state["settings_file"])
     except InputError as exc:
         raise InputError(f"the saved settings are invalid ({exc})", file=str(path)) from None
-    obs = read_observations(folder, min_epochs=settings.min_epochs)
+    obs = read_observations(folder, min_epochs=settings.min_epochs, columns=settings.columns)
     saved, now = set(state["checksums"]), set(obs.checksums)
     for name in sorted(now - saved):
         raise InputError("this table was added since the fit was made; fit it again",

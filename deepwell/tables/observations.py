@@ -1,11 +1,16 @@
 """Read the observation tables of a scenario folder.
 
-A scenario folder holds ``positions.csv`` (or ``.ecsv``) and optionally
-``velocities.csv`` (or ``.ecsv``). Cells are read as text and validated column
-by column; every problem is one InputError naming file, line (header = line 1)
-and column. Units: ``ra`` (east, ΔRA·cosδ), ``dec`` (north) and their errors in
-mas, velocities in km/s, epochs as Julian epochs in TT; an ISO date/time epoch
-is read as UTC and converted to TT (physics.md §1).
+A scenario folder holds ``positions.csv`` (or ``.ecsv``, or a published
+machine-readable table ``.mrt`` / ``.cds``: the AAS MRT or CDS "ReadMe + data"
+format, read by :mod:`astropy.io.ascii` with the units of its byte-by-byte
+description) and optionally ``velocities`` in the same forms.  A column map
+(``[columns.positions]`` / ``[columns.velocities]`` of the settings: our column
+name -> the table's) lets a published table keep its own column names.
+Cells are read as text and validated column by column; every problem is one
+InputError naming file, line (header = line 1) and column. Units: ``ra`` (east,
+ΔRA·cosδ), ``dec`` (north) and their errors in mas, velocities in km/s, epochs
+as Julian epochs in TT; an ISO date/time epoch is read as UTC and converted to TT
+(physics.md §1).
 """
 
 import csv
@@ -25,11 +30,11 @@ from astropy.utils.exceptions import AstropyWarning
 from erfa import ErfaWarning
 
 from deepwell.core.constants import C_KMS
-from deepwell.core.errors import InputError
+from deepwell.core.errors import InputError, SettingsError
 from deepwell.core.units import UNITS
 
 __all__ = ["DataWarning", "Observations", "read_positions", "read_velocities",
-           "read_observations", "EPOCH_RANGE", "control_characters"]
+           "read_observations", "EPOCH_RANGE", "control_characters", "check_column_map"]
 
 #: Accepted epochs, Julian years TT: from the first photographic plates to a few
 #: centuries ahead. Wider values are typing errors (or hostile), and would make the
@@ -160,23 +165,38 @@ def _record_lines(body, n_records):
     return np.array(starts, dtype=int)
 
 
-def _ecsv_cells(text, file):
-    """Read ECSV text, converting units; return (cells, lines, header, header line)."""
+#: astropy formats of the table files other than CSV, by file suffix.
+_ASTROPY_FORMATS = {".ecsv": ("ascii.ecsv", "ECSV"), ".mrt": ("ascii.mrt", "MRT"),
+                    ".cds": ("ascii.cds", "CDS")}
+
+
+def _astropy_cells(text, file, suffix=".ecsv", rename=None):
+    """Read ECSV or MRT/CDS text, converting units; return (cells, lines, header, header line).
+
+    ``rename`` maps the table's column names to ours (the settings' column map).
+    """
     from astropy.table import Table
 
+    fmt, label = _ASTROPY_FORMATS[suffix]
     try:
         with _quiet():
-            tbl = Table.read(text.splitlines(), format="ascii.ecsv")
+            tbl = Table.read(text.splitlines() if suffix == ".ecsv" else text, format=fmt)
     except Exception as exc:  # astropy raises many kinds for a malformed file
-        raise InputError(f"cannot read ECSV table: {exc}", file=file) from None
-    body = [i + 1 for i, s in enumerate(text.splitlines())
-            if s.strip() and not s.lstrip().startswith("#")]
-    head_line = body[0] if body else None
-    lines = np.array(body[1:] if len(body) == len(tbl) + 1
-                     else [(head_line or 0) + 1 + i for i in range(len(tbl))], dtype=int)
+        raise InputError(f"cannot read {label} table: {exc}", file=file) from None
+    rename = rename or {}
+    if suffix == ".ecsv":
+        body = [i + 1 for i, s in enumerate(text.splitlines())
+                if s.strip() and not s.lstrip().startswith("#")]
+        head_line = body[0] if body else None
+        lines = np.array(body[1:] if len(body) == len(tbl) + 1
+                         else [(head_line or 0) + 1 + i for i in range(len(tbl))], dtype=int)
+    else:  # the data rows are the last non-blank lines, after the byte-by-byte header
+        body = [i + 1 for i, s in enumerate(text.splitlines()) if s.strip()]
+        lines = np.array(body[len(body) - len(tbl):], dtype=int)
+        head_line = None
     cells = {}
     for j, name in enumerate(tbl.colnames):
-        key, col = name.strip().lower(), tbl[name]
+        key, col = rename.get(name.strip(), name.strip()).lower(), tbl[name]
         unit = getattr(col, "unit", None)
         if isinstance(col, Time):
             if key != "epoch":
@@ -274,9 +294,13 @@ class _Table:
         return s.where(s != "", default).to_numpy(object)
 
 
-def _read(path, kind):
-    """Read and validate one table; return (DataFrame, sha256 hex digest)."""
+def _read(path, kind, columns=None):
+    """Read and validate one table; return (DataFrame, sha256 hex digest).
+
+    ``columns`` maps our column names to the table's (see :func:`check_column_map`).
+    """
     file = str(path)
+    rename = {theirs: ours for ours, theirs in (columns or {}).items()}
     try:
         data = Path(path).read_bytes()
     except OSError as exc:
@@ -286,11 +310,16 @@ def _read(path, kind):
     except UnicodeDecodeError as exc:
         raise InputError(f"not UTF-8 text (byte 0x{data[exc.start]:02x})", file=file,
                          row=data[:exc.start].count(b"\n") + 1) from None
-    reader = _ecsv_cells if file.lower().endswith(".ecsv") else _csv_cells
-    cells, lines, header, head_line = reader(text, file)
+    suffix = Path(file).suffix.lower()
+    if suffix in _ASTROPY_FORMATS:
+        cells, lines, header, head_line = _astropy_cells(text, file, suffix, rename)
+    else:
+        cells, lines, header, head_line = _csv_cells(text, file)
     names, keep = {}, {}
     for j, name in enumerate(header):
-        key = str(name).strip().lower()
+        key = rename.get(str(name).strip(), str(name).strip()).lower()
+        if str(name).strip() not in rename and key in (columns or {}):
+            key = f"({name})"  # our name, but the map points to another column
         if key in names and key:
             raise InputError(f"column '{key}' appears twice", file=file, row=head_line,
                              column=str(name).strip())
@@ -300,8 +329,9 @@ def _read(path, kind):
     for key in _REQUIRED[kind]:
         if key not in names:
             found = ", ".join(n for n in names.values() if n)
-            raise InputError(f"missing required column '{key}' (found: {found})", file=file,
-                             column=key)
+            mapped = f" (mapped to '{columns[key]}')" if columns and key in columns else ""
+            raise InputError(f"missing required column '{key}'{mapped} (found: {found})",
+                             file=file, column=key)
     if len(lines) == 0:
         raise InputError("no data rows (header only)", file=file)
     table = _validate(_Table(pd.DataFrame(keep), lines, names, file), kind)
@@ -385,16 +415,53 @@ def read_velocities(path):
     return _read(path, "velocities")[0]
 
 
+_SUFFIXES = (".csv", ".ecsv", ".mrt", ".cds")
+
+
+def check_column_map(table, file=None, where="columns"):
+    """Validate a ``[columns]`` settings table: ``{kind: {our column: their column}}``.
+
+    ``kind`` is ``positions`` or ``velocities``; our columns are those of the
+    tables (``star``, ``epoch``, ``ra`` ...); theirs are non-empty names, each
+    used once.  Returns the map as plain dicts; raises SettingsError naming the key.
+    """
+    if not isinstance(table, dict):
+        raise SettingsError("expected a table", file=file, column=where)
+    out = {}
+    for kind, mapping in table.items():
+        key = f"{where}.{kind}"
+        if kind not in _REQUIRED:
+            raise SettingsError("expected [columns.positions] or [columns.velocities]",
+                                file=file, column=key)
+        if not isinstance(mapping, dict):
+            raise SettingsError("expected a table of our column = \"their column\"",
+                                file=file, column=key)
+        known = (*_REQUIRED[kind], *_OPTIONAL[kind])
+        for ours, theirs in mapping.items():
+            if ours not in known:
+                raise SettingsError(f"unknown column (known: {', '.join(known)})", file=file,
+                                    column=f"{key}.{ours}")
+            if not isinstance(theirs, str) or not theirs.strip():
+                raise SettingsError("expected the table's column name", file=file,
+                                    column=f"{key}.{ours}")
+        theirs = [v.strip() for v in mapping.values()]
+        twice = next((v for v in theirs if theirs.count(v) > 1), None)
+        if twice is not None:
+            raise SettingsError(f"column '{twice}' is mapped twice", file=file, column=key)
+        out[kind] = {k: v.strip() for k, v in mapping.items()}
+    return out
+
+
 def _find(folder, name):
-    """Path of ``name``.csv or ``name``.ecsv in ``folder`` (None if neither)."""
-    paths = [p for p in (folder / f"{name}.csv", folder / f"{name}.ecsv") if p.exists()]
-    if len(paths) == 2:
+    """Path of ``name`` with one of the table suffixes in ``folder`` (None if none)."""
+    paths = [p for p in (folder / f"{name}{sfx}" for sfx in _SUFFIXES) if p.exists()]
+    if len(paths) >= 2:
         raise InputError(f"both {paths[0]} and {paths[1]} exist; keep only one",
                          file=paths[0])
     return paths[0] if paths else None
 
 
-def read_observations(folder, min_epochs=3, strict=False):
+def read_observations(folder, min_epochs=3, strict=False, columns=None):
     """Read the positions and (optional) velocity tables of a scenario folder.
 
     Parameters
@@ -406,6 +473,9 @@ def read_observations(folder, min_epochs=3, strict=False):
         Stars with fewer distinct non-excluded position epochs are dropped.
     strict : bool, optional
         Raise InputError instead of dropping a star with a DataWarning.
+    columns : dict, optional
+        ``{"positions": {our column: their column}, "velocities": {...}}`` for
+        tables with their own column names (:func:`check_column_map`).
 
     Returns
     -------
@@ -422,16 +492,17 @@ def read_observations(folder, min_epochs=3, strict=False):
         raise InputError("not a folder", file=str(folder))
     pos_path, vel_path = _find(root, "positions"), _find(root, "velocities")
     if pos_path is None:
-        raise InputError("no positions table (positions.csv or positions.ecsv)",
+        raise InputError("no positions table (positions.csv, .ecsv, .mrt or .cds)",
                          file=str(folder))
-    pos, digest = _read(pos_path, "positions")
+    columns = columns or {}
+    pos, digest = _read(pos_path, "positions", columns.get("positions"))
     checksums = {pos_path.name: digest}
     if vel_path is None:
         vel = pd.DataFrame({c: [] for c in _COLUMNS["velocities"]}).astype(
             {"star": str, "epoch": float, "vr": float, "vr_err": float, "dataset": str,
              "exclude": bool, "line": int, "file": str})
     else:
-        vel, checksums[vel_path.name] = _read(vel_path, "velocities")
+        vel, checksums[vel_path.name] = _read(vel_path, "velocities", columns.get("velocities"))
 
     counts = pos[~pos.exclude].groupby("star").epoch.nunique()
     problems = [(s, pos, f"only {counts.get(s, 0)} usable position epochs (need {min_epochs})")

@@ -52,6 +52,13 @@ Example::
     outlier_width = 20.0          # width of the outlier Gaussian, in units of the error
     exclude_rows = [{file = "positions.csv", line = 17}]   # left out, not deleted
 
+    [columns.positions]           # a table with its own column names (e.g. a published
+    star = "Name"                 # MRT/CDS file positions.mrt): our column = theirs;
+    ra = "dRA"                    # units come from the table (arcsec, mas, deg ...)
+    ra_err = "e_dRA"
+    [columns.velocities]
+    vr = "RV"
+
 See :mod:`deepwell.model.effects` for the model behind each switch, and
 :mod:`deepwell.model.datasets` / :mod:`deepwell.model.likelihood` for the data-set terms,
 the likelihoods and the names of their parameters.  For the effect
@@ -69,10 +76,12 @@ from deepwell.core.errors import SettingsError
 from deepwell.core.parameters import EXTRA, SHARED, STAR_ELEMENTS
 from deepwell.tables.datasets import parse_datasets
 from deepwell.tables.effects import Effects, parse_effects
+from deepwell.tables.observations import check_column_map
 
 __all__ = ["SharedSetting", "StarSetting", "Settings", "load_settings", "Effects"]
 
-_TOP_KEYS = {"reference_epoch", "min_epochs", "shared", "stars", "effects", "datasets", "fit"}
+_TOP_KEYS = {"reference_epoch", "min_epochs", "shared", "stars", "effects", "datasets", "fit",
+             "columns"}
 _SHARED_KEYS = {"value", "fixed", "min", "max", "prior"}
 
 
@@ -108,6 +117,7 @@ class Settings:
     effects: dict = field(default_factory=dict)  # [effects] as written, validated
     datasets: dict = field(default_factory=dict)  # [datasets] as written, validated
     fit: dict = field(default_factory=dict)  # [fit] as written, validated
+    columns: dict = field(default_factory=dict)  # [columns]: kind -> {ours: theirs}
     source: str | None = None
     raw: dict = field(default_factory=dict)
 
@@ -142,7 +152,9 @@ class Settings:
             stars[name] = d
         return {"reference_epoch": self.reference_epoch, "min_epochs": self.min_epochs,
                 "shared": shared, "stars": stars, "effects": dict(self.effects),
-                "datasets": dict(self.datasets), "fit": dict(self.fit)}
+                "datasets": dict(self.datasets), "fit": dict(self.fit),
+                **({"columns": {k: dict(v) for k, v in self.columns.items()}}
+                   if self.columns else {})}
 
     def effect_switches(self):
         """The validated :class:`deepwell.tables.effects` (defaults fill the gaps)."""
@@ -289,9 +301,10 @@ def parse_settings(data, file=None):
     parse_effects(effects, file=file)  # validate; kept as written (see effect_switches)
     datasets, fit = data.get("datasets", {}), data.get("fit", {})
     parse_datasets(datasets, fit, file=file)  # validate; kept as written (dataset_config)
+    columns = check_column_map(data.get("columns", {}), file=file)
     return Settings(reference_epoch=ref, min_epochs=min_epochs, shared=shared, stars=stars,
-                    effects=dict(effects), datasets=dict(datasets), fit=dict(fit), source=file,
-                    raw=data)
+                    effects=dict(effects), datasets=dict(datasets), fit=dict(fit),
+                    columns=columns, source=file, raw=data)
 
 
 def load_settings(path):

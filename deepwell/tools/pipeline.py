@@ -119,7 +119,8 @@ def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=No
     say = progress or (lambda text: None)
     replace = replace or job.resume
     settings = epoch_settings(scenario, settings, say)
-    obs = read_observations(scenario, min_epochs=settings.min_epochs, strict=job.strict)
+    obs = read_observations(scenario, min_epochs=settings.min_epochs, strict=job.strict,
+                            columns=settings.columns)
     external = read_external_constraints(job.external) if job.external else None
     tmp = prepare_output(out, replace=replace)
     try:

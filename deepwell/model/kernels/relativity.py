@@ -133,7 +133,8 @@ def redshift_velocity(v_z, v_sq, r_au, mass, f=1.0, exact=True, vz0=0.0):
     Returns
     -------
     ndarray
-        RV = vz0 + v_z + f * excess, km/s (optical convention c z).
+        RV = vz0 + v_z + f * excess, km/s (optical convention c z); with ``exact``,
+        NaN where v >= c or r <= R_s (no physical orbit).
 
     Notes
     -----
@@ -155,9 +156,12 @@ def redshift_velocity(v_z, v_sq, r_au, mass, f=1.0, exact=True, vz0=0.0):
     vz0 = np.asarray(vz0, dtype=float)
     gm_over_rc2 = np.asarray(mass, dtype=float) * GRAV_RADIUS_AU_PER_MSUN / np.asarray(r_au)
     if exact:
-        ln1pz = (-0.5 * np.log1p(-np.asarray(v_sq) / C_KMS**2) + np.log1p(v_z / C_KMS)
-                 - 0.5 * np.log1p(-2.0 * gm_over_rc2) + np.log1p(vz0 / C_KMS))
-        excess = C_KMS * np.expm1(ln1pz) - vz0 - v_z
+        # a trial orbit faster than light or inside the Schwarzschild radius has no
+        # redshift: NaN there (the callers treat it as outside the support), silently
+        with np.errstate(invalid="ignore", divide="ignore"):
+            ln1pz = (-0.5 * np.log1p(-np.asarray(v_sq) / C_KMS**2) + np.log1p(v_z / C_KMS)
+                     - 0.5 * np.log1p(-2.0 * gm_over_rc2) + np.log1p(vz0 / C_KMS))
+            excess = C_KMS * np.expm1(ln1pz) - vz0 - v_z
     else:
         excess = 0.5 * np.asarray(v_sq) / C_KMS + gm_over_rc2 * C_KMS
     return vz0 + v_z + f * excess

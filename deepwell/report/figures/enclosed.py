@@ -158,9 +158,10 @@ def plot_enclosed_mass(profile, path_stem, model_settings=None,
         top.set_xlabel("radius (pc)")
         c = profile.consistency
         g = profile.consistency_good
-        fig.text(0.12, 0.965, f"per-star masses against one point mass: all stars chi2 = "
-                 f"{c.chi2:.1f} for {c.dof} dof, p = {c.p_value:.2g}; well constrained chi2 = "
-                 f"{g.chi2:.1f} for {g.dof} dof, p = {g.p_value:.2g}", va="top", fontsize=6.5)
+        fig.text(0.12, 0.975, f"per-star masses against one point mass: all stars chi2 = "
+                 f"{c.chi2:.1f} for {c.dof} dof, p = {c.p_value:.2g};\nwell constrained "
+                 f"stars chi2 = {g.chi2:.1f} for {g.dof} dof, p = {g.p_value:.2g}", va="top",
+                 fontsize=6.5)
         handles, labels = ax.get_legend_handles_labels()
         _overview(fig.add_axes((0.73, 0.58, 0.25, 0.28)), d, m)
         fig.legend(handles, [textwrap.fill(t, 40) for t in labels], loc="upper left",
