@@ -18,7 +18,7 @@ def add_demo_parser(subparsers):
     p.add_argument("--scenario", default="scenarios/rich", help="scenario folder")
     p.add_argument("--out", default="figures", help="folder for the figure files")
     p.add_argument("--sample", action="store_true",
-                   help="sample the posterior too (about 5 min on 2 cores) and add its figures")
+                   help="sample the posterior too (about 8 min on 2 cores) and add its figures")
     p.set_defaults(func=run_demo)
     return p
 

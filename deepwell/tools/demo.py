@@ -26,7 +26,7 @@ def refresh_figures(scenario="scenarios/rich", out="figures", sample=False, prog
     scenario, out : str or Path
         Scenario folder; folder for the figure files (created if missing).
     sample : bool
-        Sample the posterior too (about 5 min on 2 cores for the rich demo)
+        Sample the posterior too (about 8 min on 2 cores for the rich demo)
         and add its figures.
     progress : callable, optional
         Called with a short text at each phase.
