@@ -220,8 +220,8 @@ def test_rank_rhat_matches_the_published_recipe():
 
 
 def test_bulk_ess_of_ar1_chains_follows_the_integrated_autocorrelation_time():
-    # AR(1) with coefficient phi: tau = (1 + phi) / (1 - phi) (common practice; e.g.
-    # Sokal 1997 lecture notes on Monte Carlo methods, from memory), so ESS = N / tau.
+    # AR(1) with coefficient phi: integrated autocorrelation time tau = (1 + phi) / (1 - phi)
+    # (common practice; the sum of phi^|k| over all lags), so ESS = N / tau.
     phi, m, n = 0.5, 4, 5000
     rng = np.random.default_rng(11)
     x = np.zeros((m, n))
