@@ -2,6 +2,7 @@
 
 import os
 import textwrap
+from pathlib import Path
 
 # One BLAS thread per test process: the matrices are small, and threads fighting
 # over 2 cores made single SVDs a hundred times slower (common practice).
@@ -87,3 +88,19 @@ def small_scenario(tmp_path_factory):
     desc = root / "description.toml"
     desc.write_text(SMALL_SCENARIO.format(seed=4242))
     return write_scenario(desc, root / "data")
+
+
+# ------------------------------------------------------------ helpers shared by test files
+def one_line_error(capsys):
+    """The single ``error:`` line a refused command printed (and no traceback)."""
+    err = capsys.readouterr().err
+    assert "Traceback" not in err
+    errors = [line for line in err.strip().splitlines() if "error:" in line]
+    assert len(errors) == 1, err
+    return errors[0]
+
+
+def snapshot(folder):
+    """Every regular file under ``folder`` and its bytes (to show a folder is untouched)."""
+    return {p.relative_to(folder).as_posix(): p.read_bytes()
+            for p in sorted(Path(folder).rglob("*")) if p.is_file()}

@@ -6,6 +6,7 @@ import shutil
 import pytest
 
 from deepwell.cli import main
+from tests.conftest import SMALL_SCENARIO, one_line_error
 
 GOOD_POS = "star,epoch,ra,dec,ra_err,dec_err\n"
 
@@ -16,14 +17,6 @@ def scenario(tmp_path, small_scenario):
     dest = tmp_path / "scen"
     shutil.copytree(small_scenario, dest)
     return dest
-
-
-def _one_line_error(capsys):
-    err = capsys.readouterr().err.strip().splitlines()
-    errors = [line for line in err if "error:" in line]
-    assert len(errors) == 1, err
-    assert "Traceback" not in "\n".join(err)
-    return errors[0]
 
 
 def _corrupt(folder, old, new, table="positions.csv", line=3):
@@ -44,7 +37,7 @@ def test_bad_cell_gives_one_line_with_file_line_and_column(scenario, tmp_path, c
     edit(scenario)
     code = main(["fit", str(scenario), "--out", str(tmp_path / "rep")])
     assert code == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "positions.csv" in msg and "line 3" in msg and f"'{column}'" in msg
     assert words in msg
     assert not (tmp_path / "rep").exists()
@@ -54,7 +47,7 @@ def test_missing_column_is_named(scenario, tmp_path, capsys):
     text = (scenario / "positions.csv").read_text().replace("dec_err", "dec_error", 1)
     (scenario / "positions.csv").write_text(text)
     assert main(["fit", str(scenario), "--out", str(tmp_path / "rep")]) == 2
-    assert "dec_err" in _one_line_error(capsys)
+    assert "dec_err" in one_line_error(capsys)
 
 
 def test_correlation_of_one_is_refused(tmp_path, capsys):
@@ -63,7 +56,7 @@ def test_correlation_of_one_is_refused(tmp_path, capsys):
     (scen / "positions.csv").write_text(
         "star,epoch,ra,dec,ra_err,dec_err,corr\nx,2001,1,2,0.5,0.5,1.0\n")
     assert main(["fit", str(scen), "--out", str(tmp_path / "rep")]) == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "'corr'" in msg and "line 2" in msg
 
 
@@ -72,7 +65,7 @@ def test_duplicate_rows_name_both_lines(scenario, tmp_path, capsys):
     lines.append(lines[1])
     (scenario / "positions.csv").write_text("\n".join(lines) + "\n")
     assert main(["fit", str(scenario), "--out", str(tmp_path / "rep")]) == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "line 2" in msg and f"line {len(lines)}" in msg
 
 
@@ -81,10 +74,10 @@ def test_empty_file_and_wrong_delimiter(tmp_path, capsys):
     scen.mkdir()
     (scen / "positions.csv").write_text("")
     assert main(["fit", str(scen), "--out", str(tmp_path / "r1")]) == 2
-    assert "positions.csv" in _one_line_error(capsys)
+    assert "positions.csv" in one_line_error(capsys)
     (scen / "positions.csv").write_text(GOOD_POS.replace(",", ";") + "x;2001;1;2;0.5;0.5\n")
     assert main(["fit", str(scen), "--out", str(tmp_path / "r2")]) == 2
-    assert "';'" in _one_line_error(capsys)
+    assert "';'" in one_line_error(capsys)
 
 
 def test_byte_order_mark_is_accepted_and_report_written(scenario, tmp_path):
@@ -111,7 +104,7 @@ def test_star_with_too_few_epochs_is_set_aside_or_refused_under_strict(scenario,
     assert "lonely" in (out / "report.md").read_text()
     capsys.readouterr()
     assert main(["fit", str(scenario), "--out", str(tmp_path / "r2"), "--strict"]) == 2
-    assert "lonely" in _one_line_error(capsys)
+    assert "lonely" in one_line_error(capsys)
 
 
 def test_foreign_folder_is_refused_and_left_untouched(scenario, tmp_path, capsys):
@@ -119,7 +112,7 @@ def test_foreign_folder_is_refused_and_left_untouched(scenario, tmp_path, capsys
     out.mkdir()
     (out / "notes.txt").write_text("my own notes")
     assert main(["fit", str(scenario), "--out", str(out), "--no-figures"]) == 2
-    _one_line_error(capsys)
+    one_line_error(capsys)
     assert [p.name for p in out.iterdir()] == ["notes.txt"]
     assert (out / "notes.txt").read_text() == "my own notes"
 
@@ -136,8 +129,6 @@ def test_failed_run_leaves_an_earlier_report_intact(scenario, tmp_path, capsys):
 
 
 def test_simulate_command_writes_tables(tmp_path):
-    from tests.conftest import SMALL_SCENARIO
-
     desc = tmp_path / "d.toml"
     desc.write_text(SMALL_SCENARIO.format(seed=1))
     assert main(["simulate", str(desc), "--out", str(tmp_path / "sim"), "-q"]) == 0
@@ -149,7 +140,7 @@ def test_settings_error_is_one_line(scenario, tmp_path, capsys):
     bad = tmp_path / "s.toml"
     bad.write_text("[shared.mass]\nvalue = 'heavy'\n")
     assert main(["fit", str(scenario), "--out", str(tmp_path / "r"), "--settings", str(bad)]) == 2
-    assert "shared.mass.value" in _one_line_error(capsys)
+    assert "shared.mass.value" in one_line_error(capsys)
 
 
 def test_effect_switches_reach_the_fit(scenario, tmp_path):
@@ -179,7 +170,7 @@ def test_more_free_parameters_than_data_is_refused(tmp_path, capsys):
     (scen / "velocities.csv").write_text("star,epoch,vr,vr_err\nx,2016.0,100.0,10.0\n"
                                          "x,2017.0,150.0,10.0\n")
     assert main(["fit", str(scen), "--out", str(tmp_path / "rep"), "--newtonian"]) == 2
-    assert "cannot determine" in _one_line_error(capsys)
+    assert "cannot determine" in one_line_error(capsys)
 
 
 def test_extended_mass_limits_reach_the_report(scenario, tmp_path):

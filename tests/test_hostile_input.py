@@ -24,23 +24,10 @@ from deepwell.fit.sampling.ensemble import LineProgress, make_progress, run_ense
 from deepwell.model.kernels.relativity import redshift_velocity
 from deepwell.report.figures.style import MARKERS, PALETTE, file_stem, style_of
 from deepwell.tables.observations import read_velocities
-from tests.conftest import SMALL_SCENARIO
+from tests.conftest import SMALL_SCENARIO, one_line_error, snapshot
 
 #: POSIX NAME_MAX of Linux (limits.h) and of most other file systems: 255 bytes per name.
 NAME_MAX = 255
-
-
-def _snapshot(folder):
-    return {p.relative_to(folder).as_posix(): p.read_bytes()
-            for p in sorted(folder.rglob("*")) if p.is_file()}
-
-
-def _one_line_error(capsys):
-    err = capsys.readouterr().err
-    assert "Traceback" not in err
-    errors = [line for line in err.strip().splitlines() if "error:" in line]
-    assert len(errors) == 1, err
-    return errors[0]
 
 
 @pytest.fixture(scope="module")
@@ -60,7 +47,7 @@ def replaceable(tmp_path, earlier_report):
     scen, out = earlier_report
     shutil.copytree(scen, tmp_path / "scen")
     shutil.copytree(out, tmp_path / "rep")
-    return tmp_path / "scen", tmp_path / "rep", _snapshot(tmp_path / "rep")
+    return tmp_path / "scen", tmp_path / "rep", snapshot(tmp_path / "rep")
 
 
 # ------------------------------------------------------------- star names -> file names
@@ -132,9 +119,9 @@ def test_impossible_settings_number_is_one_line_naming_the_key(replaceable, caps
     settings.write_text(toml + "\n")
     code = main(["fit", str(scen), "--out", str(out), "--replace", "--settings", str(settings)])
     assert code == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert f"key '{key}'" in msg and "bad.toml" in msg
-    assert _snapshot(out) == before
+    assert snapshot(out) == before
 
 
 # ------------------------------------------------------------ table magnitudes
@@ -158,10 +145,10 @@ def test_extreme_table_number_is_refused_with_file_line_column_and_range(replace
     lines[4] = ",".join(cells)
     path.write_text("\n".join(lines) + "\n")
     assert main(["fit", str(scen), "--out", str(out), "--replace"]) == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert table in msg and "line 5" in msg and f"column '{column}'" in msg
     assert "out of range" in msg and "expected" in msg
-    assert _snapshot(out) == before
+    assert snapshot(out) == before
 
 
 def test_radial_velocity_limit_is_the_speed_of_light(tmp_path):
@@ -190,7 +177,7 @@ def _resume(scenario, out, capsys):
     code = main(["fit", str(scenario), "--out", str(out), "--no-figures", "-q",
                  "--replace", "--sample", "--steps", "20", "--warmup", "10", "--chains", "2",
                  "--resume"])
-    return code, _one_line_error(capsys)
+    return code, one_line_error(capsys)
 
 
 def _replace_dataset(path, name, value=None):
@@ -213,13 +200,13 @@ def test_damaged_checkpoint_is_refused_with_one_line_naming_the_file(tmp_path, s
     out = tmp_path / "rep"
     shutil.copytree(sampled_report, out)
     shutil.copytree(str(sampled_report) + ".chains", str(out) + ".chains")
-    before = _snapshot(out)
+    before = snapshot(out)
     damage(tmp_path / "rep.chains" / "chain_1.h5")
     chain_0 = (tmp_path / "rep.chains" / "chain_0.h5").read_bytes()
     code, msg = _resume(small_scenario, out, capsys)
     assert code == 2
     assert "chain_1.h5" in msg and "damaged checkpoint" in msg and words in msg
-    assert _snapshot(out) == before
+    assert snapshot(out) == before
     # every checkpoint is checked before any chain runs on: chain 0 did not continue
     assert (tmp_path / "rep.chains" / "chain_0.h5").read_bytes() == chain_0
 

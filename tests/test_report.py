@@ -28,6 +28,7 @@ from deepwell.report.writer import compactness_choice, save_report, summary_dict
 from deepwell.results import analyse
 from deepwell.tables.observations import read_observations
 from deepwell.tables.settings import Settings
+from tests.conftest import snapshot
 
 RICH = Path(__file__).resolve().parents[1] / "scenarios" / "rich"
 STARS = ("br-01", "br-04", "br-11", "br-12")
@@ -277,11 +278,6 @@ def test_value_error_formatter_text_style():
 
 
 # ------------------------------------------------------------------ output folder
-def _snapshot(folder):
-    return {p.relative_to(folder).as_posix(): p.read_bytes()
-            for p in sorted(Path(folder).rglob("*")) if p.is_file()}
-
-
 def _fake_report(tmp, names=("summary.json", "tables/a.ecsv")):
     for n in names:
         (tmp / n).parent.mkdir(parents=True, exist_ok=True)
@@ -296,11 +292,11 @@ def test_foreign_non_empty_folder_is_refused_and_untouched(tmp_path):
     final = tmp_path / "out"
     final.mkdir()
     (final / "notes.txt").write_text("mine")
-    before = _snapshot(final)
+    before = snapshot(final)
     with pytest.raises(OutputError, match="not made by deepwell") as exc:
         prepare_output(final)
     assert "\n" not in str(exc.value)
-    assert _snapshot(final) == before and _no_temp_left(final)
+    assert snapshot(final) == before and _no_temp_left(final)
 
 
 def test_foreign_file_is_never_overwritten_even_with_replace(tmp_path):
@@ -308,12 +304,12 @@ def test_foreign_file_is_never_overwritten_even_with_replace(tmp_path):
     final.mkdir()
     (final / "summary.json").write_text("someone else's")
     (final / "keep.txt").write_text("keep")
-    before = _snapshot(final)
+    before = snapshot(final)
     tmp = prepare_output(final, replace=True)
     _fake_report(tmp)
     with pytest.raises(OutputError, match="summary.json: not written by deepwell"):
         install_output(tmp, final, replace=True)
-    assert _snapshot(final) == before and _no_temp_left(final)
+    assert snapshot(final) == before and _no_temp_left(final)
 
 
 def test_replace_into_foreign_folder_adds_beside_foreign_files(tmp_path):
@@ -323,7 +319,7 @@ def test_replace_into_foreign_folder_adds_beside_foreign_files(tmp_path):
     tmp = prepare_output(final, replace=True)
     _fake_report(tmp)
     install_output(tmp, final, replace=True)
-    snap = _snapshot(final)
+    snap = snapshot(final)
     assert snap["keep.txt"] == b"keep" and snap["summary.json"] == b"new summary.json"
     assert set(json.loads(snap[MANIFEST])["files"]) == {"summary.json", "tables/a.ecsv"}
 
@@ -341,12 +337,12 @@ def test_failed_run_leaves_existing_folder_byte_identical(tmp_path):
     with staged_output(final) as tmp:
         _fake_report(tmp)
     (final / "keep.txt").write_text("user file")
-    before = _snapshot(final)
+    before = snapshot(final)
     with pytest.raises(RuntimeError, match="fit exploded"):
         with staged_output(final, replace=True) as tmp:
             _fake_report(tmp, ("summary.json", "other.txt"))
             raise RuntimeError("fit exploded")
-    assert _snapshot(final) == before and _no_temp_left(final)
+    assert snapshot(final) == before and _no_temp_left(final)
 
 
 def test_replace_removes_only_manifest_files(tmp_path):
@@ -357,7 +353,7 @@ def test_replace_removes_only_manifest_files(tmp_path):
     (final / "sub" / "user.txt").write_text("user file in a report folder")
     with staged_output(final, replace=True) as tmp:
         _fake_report(tmp, ("summary.json", "tables/a.ecsv"))
-    snap = _snapshot(final)
+    snap = snapshot(final)
     assert set(snap) == {MANIFEST, "summary.json", "tables/a.ecsv", "keep.txt", "sub/user.txt"}
     assert snap["keep.txt"] == b"user file" and snap["summary.json"] == b"new summary.json"
 
@@ -367,11 +363,11 @@ def test_replace_refuses_a_report_file_edited_by_hand(tmp_path):
     with staged_output(final) as tmp:
         _fake_report(tmp)
     (final / "summary.json").write_text("edited by hand")
-    before = _snapshot(final)
+    before = snapshot(final)
     with pytest.raises(OutputError, match="changed since deepwell wrote it"):
         with staged_output(final, replace=True) as tmp:
             _fake_report(tmp)
-    assert _snapshot(final) == before
+    assert snapshot(final) == before
 
 
 def test_manifest_pointing_outside_the_folder_is_refused(tmp_path):

@@ -31,17 +31,10 @@ from deepwell.report.tables import _tex_escape, md_text
 from deepwell.results.saved_fit import load_fit
 from deepwell.tables.observations import read_positions
 from deepwell.tools.journal import TrialJournal
+from tests.conftest import one_line_error
 
 
 # ------------------------------------------------------------------ helpers
-def _one_line_error(capsys):
-    err = capsys.readouterr().err.strip().splitlines()
-    errors = [line for line in err if "error:" in line]
-    assert len(errors) == 1, err
-    assert "Traceback" not in "\n".join(err)
-    return errors[0]
-
-
 def _snapshot(folder):
     """Everything under ``folder``, links not followed: {path: bytes | link target | 'dir'}."""
     folder = Path(folder)
@@ -145,7 +138,7 @@ def test_replace_never_follows_a_link_out_of_the_report_folder(tmp_path, capsys,
     before_out, before_rep = _snapshot(outside), _snapshot(rep)
     code = main(["fit", str(small_scenario), "--out", str(rep), "--replace", "--no-figures"])
     assert code == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert words in msg and str(rep) in msg
     assert _snapshot(outside) == before_out  # the outside folder is byte-identical
     assert _snapshot(rep) == before_rep and _siblings(rep) == []
@@ -330,7 +323,7 @@ def test_unusable_out_is_refused_before_the_fit(tmp_path, capsys, monkeypatch, s
     out, words = make(tmp_path)
     before = _snapshot(tmp_path)
     assert main(["fit", str(small_scenario), "--out", out, "--no-figures"]) == 2
-    assert words in _one_line_error(capsys)
+    assert words in one_line_error(capsys)
     assert _snapshot(tmp_path) == before
 
 
@@ -342,7 +335,7 @@ def test_mount_point_and_read_only_folder_are_refused_before_the_fit(tmp_path, c
     real = os.path.ismount
     monkeypatch.setattr(os.path, "ismount", lambda p: os.fspath(p) == str(out) or real(p))
     assert main(["fit", str(small_scenario), "--out", str(out), "--no-figures"]) == 2
-    assert "mount point" in _one_line_error(capsys)
+    assert "mount point" in one_line_error(capsys)
     monkeypatch.setattr(os.path, "ismount", real)
     # a read-only folder (os.access is what a read-only mount answers, even for root)
     real_access = os.access
@@ -350,7 +343,7 @@ def test_mount_point_and_read_only_folder_are_refused_before_the_fit(tmp_path, c
                         False if os.fspath(p) == str(out) and mode & os.W_OK
                         else real_access(p, mode, **kw))
     assert main(["fit", str(small_scenario), "--out", str(out), "--no-figures"]) == 2
-    assert "not readable and writable" in _one_line_error(capsys)
+    assert "not readable and writable" in one_line_error(capsys)
     assert list(out.iterdir()) == [] and _siblings(out) == []
 
 
@@ -390,7 +383,7 @@ def test_plan_refuses_a_table_added_since_the_fit(positions_only, tmp_path, caps
     shutil.copytree(scen, copy)
     shutil.copy(vel, copy / "velocities.csv")
     assert _plan(report, "--scenario", str(copy)) == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "velocities.csv" in msg and "added since the fit" in msg
     assert not (report / "plan").exists()
     # the same folder without the added table plans (exit 0)
@@ -409,7 +402,7 @@ def test_absurd_epoch_is_refused_naming_file_line_and_column(tmp_path, capsys, e
                                         f"x,{epoch},1,2,0.5,0.5\n"
                                         "x,2003,1,2,0.5,0.5\n")
     assert main(["fit", str(scen), "--out", str(tmp_path / "rep")]) == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "positions.csv" in msg and "line 3" in msg and "'epoch'" in msg
     assert not (tmp_path / "rep").exists()
 
@@ -435,7 +428,7 @@ def test_plan_ranges_beyond_the_stated_limits_are_refused(positions_only, tmp_pa
     report = _copy_report(positions_only[1], tmp_path)
     code = main(["plan", str(report), *args, "--no-figures", "-q"])
     assert code == 2
-    assert words in _one_line_error(capsys)
+    assert words in one_line_error(capsys)
     assert not (report / "plan").exists()
 
 
@@ -449,7 +442,7 @@ def test_epochs_file_is_checked_and_closed(positions_only, tmp_path, capsys):
     assert "2026.3000" in forecast and "2027.3000" in forecast
     epochs.write_text("2026.3\n1e7\n")
     assert _plan(report, "--epochs-file", str(epochs), "--replace") == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "epochs.txt" in msg and "line 2" in msg
 
 
@@ -464,7 +457,7 @@ def test_control_characters_in_names_are_refused(tmp_path, capsys, column, row):
     scen.mkdir()
     (scen / "positions.csv").write_text("star,epoch,ra,dec,ra_err,dec_err,dataset\n" + row)
     assert main(["fit", str(scen), "--out", str(tmp_path / "rep")]) == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "positions.csv" in msg and "line 3" in msg and f"'{column}'" in msg
     assert "control character" in msg
 
@@ -527,7 +520,7 @@ def test_damaged_fit_state_is_refused_naming_the_file(positions_only, tmp_path, 
     report = _copy_report(positions_only[1], tmp_path)
     _tamper_state(report, edit)
     assert _plan(report) == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "fit-state.json" in msg and words in msg
     assert not (report / "plan").exists()
 
@@ -587,7 +580,7 @@ def test_posterior_samples_with_nan_are_refused(positions_only, tmp_path, capsys
     np.savez(report / "samples.npz", internal_samples=samples,
              internal_names=np.array(fit.model.layout.names()))
     assert _plan(report, "--samples", str(report / "samples.npz")) == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "samples.npz" in msg and "not finite (NaN or infinite: 1 of" in msg
 
 
@@ -596,5 +589,5 @@ def test_fit_state_that_is_a_link_is_not_followed(positions_only, tmp_path, caps
     (report / "fit-state.json").unlink()
     (report / "fit-state.json").symlink_to("/dev/zero")  # reading it would never end
     assert _plan(report) == 2
-    msg = _one_line_error(capsys)
+    msg = one_line_error(capsys)
     assert "fit-state.json" in msg and "not a regular file" in msg
