@@ -23,16 +23,16 @@ from dataclasses import dataclass
 
 import numpy as np
 from numba import njit
-from scipy.integrate._ivp import dop853_coefficients as _dop
 
 from deepwell.core.constants import C_AU_PER_YR, GM_SUN_AU3_PER_YR2, KEPLER_K, KMS_PER_AU_PER_YR
 
+from . import dop853_tableau as _dop
 from .orbit import kepler_xy, thiele_innes, to_sky
 
 __all__ = ["IntegratedStates", "PhysicalTrack", "integrate_orbits", "osculating_state", "pn_track"]
 
 # Dormand & Prince 8(5,3) tableau (Hairer, Norsett & Wanner 1993, Solving
-# Ordinary Differential Equations I, sect. II.10), the copy shipped with scipy.
+# Ordinary Differential Equations I, sect. II.10), kept in our own module.
 _A = np.ascontiguousarray(_dop.A[: _dop.N_STAGES, : _dop.N_STAGES], dtype=float)
 _B = np.ascontiguousarray(_dop.B, dtype=float)
 _NS = _dop.N_STAGES
