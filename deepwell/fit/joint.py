@@ -83,7 +83,7 @@ def fit_joint(observations, settings, progress=None):
                          file=str(observations.folder))
     vec0 = np.clip(start_vec, lo, hi)
     say(f"joint fit of {plural(int(free.sum()), 'parameter')} to {model.n_data} data")
-    vec, sol = minimise(model, vec0, free, lo, hi)
+    vec, sol = minimise(model, vec0, free, lo, hi, progress=say)
     notes = list(start.notes)
     if model.datasets is not None and model.datasets.mixture:  # see deepwell.model.likelihood
         vec, sol, note = restart_without_outliers(model, vec, sol, settings, free, lo, hi)
