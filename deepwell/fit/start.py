@@ -253,7 +253,7 @@ def _scale_from_stars(model, data, res):
     return dists, dist_w, rows
 
 
-def find_start(model, settings, shared_start=None):
+def find_start(model, settings, shared_start=None, progress=None):
     """Starting internal vector for the joint fit of ``model``.
 
     Parameters
@@ -262,6 +262,8 @@ def find_start(model, settings, shared_start=None):
     settings : deepwell.tables.settings.Settings
     shared_start : dict, optional
         Starting values of shared parameters that override the search.
+    progress : callable, optional
+        Called with one line per star searched (for long searches).
 
     Returns
     -------
@@ -300,7 +302,9 @@ def find_start(model, settings, shared_start=None):
     # with the star's own mass free (the distance held), so that a small error
     # of the starting mass does not trap a precisely measured orbit
     own_mass, own_w = [], []
+    say = progress or (lambda text: None)
     for k, d in enumerate(data):
+        say(f"starting orbit of {model.stars[k]} (star {k + 1} of {len(data)})")
         cands = grid_search(d, mass=mass, dist=dist)
         cands = _distinct([_refine_sky(d, c) for c in cands] + cands)
         star = model.stars[k]

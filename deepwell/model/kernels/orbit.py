@@ -238,8 +238,8 @@ def per_epoch(star, consts, elements):
     """
     if star is None:
         return consts, elements
-    return (tuple(np.asarray(c)[..., star] for c in consts),
-            tuple(np.asarray(x)[..., star] for x in elements))
+    return (tuple(np.take(c, star, axis=-1) for c in consts),
+            tuple(np.take(x, star, axis=-1) for x in elements))
 
 
 def _sky_state(t, a, ecc, inc, node, peri_arg, t_peri, period):
