@@ -153,10 +153,10 @@ def test_line_count_matches_pythons_splitlines(tmp_path):
 
 def test_input_beyond_the_available_memory_is_refused_in_one_line(tmp_path, capsys,
                                                                  monkeypatch):
-    # With 1 MB "available", the sparse demo (BYTES_PER_ROW per line) cannot be fitted:
+    # With 10 kB "available", the sparse demo (BYTES_PER_ROW per line) cannot be fitted:
     # the run stops before reading, with exit status 2 and one line naming the file and
     # its size; no output folder is made.
-    monkeypatch.setattr(size, "memory_available", lambda: 1_000_000)
+    monkeypatch.setattr(size, "memory_available", lambda: 10_000)
     out = tmp_path / "report"
     before = snapshot(tmp_path)
     assert main(["fit", "scenarios/sparse", "--out", str(out), "--no-figures"]) == 2
