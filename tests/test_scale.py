@@ -41,6 +41,7 @@ def survey(tmp_path, n_pos, n_vel=None, n_stars=3, seed=11, a_range=(90.0, 250.0
              f"end = 2025.0\ncadence = {n_pos / n_stars / 30.0:.8g}\nerror = 0.8\n"
              '[[campaigns]]\ndataset = "spec"\nkind = "velocities"\nstart = 2000.0\n'
              f"end = 2025.0\ncadence = {n_vel / n_stars / 25.0:.8g}\nerror = 10.0\n")
+    tmp_path.mkdir(parents=True, exist_ok=True)
     (tmp_path / "d.toml").write_text(text)
     return write_scenario(tmp_path / "d.toml", tmp_path / "data")
 
