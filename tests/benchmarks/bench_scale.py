@@ -53,7 +53,9 @@ res = fit_joint(obs, settings)
 wall, cpu = time.perf_counter() - t0, time.process_time() - c0
 peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 truth = json.load(open(sys.argv[1] + "/truth.json"))
-print(json.dumps({"wall": wall, "cpu": cpu, "peak": peak, "n_data": res.n_data,
+import deepwell
+print(json.dumps({"tree": deepwell.__file__, "wall": wall, "cpu": cpu, "peak": peak,
+                  "n_data": res.n_data,
                   "mass": res.value("mass"), "mass_sigma": res.sigma("mass"),
                   "distance": res.value("distance"), "chi2": res.chi2,
                   "converged": res.converged}))
@@ -84,7 +86,8 @@ def scenario(folder, n_stars, n_rows, seed=3):
 def run_case(data, mode, tree):
     """One fit in a fresh process; its measurements as a dict (None if it failed)."""
     env = dict(os.environ, PYTHONPATH=str(tree))
-    out = subprocess.run([sys.executable, "-c", CASE, str(data), mode], env=env,
+    # run inside the tree: "python -c" puts the working folder first on sys.path
+    out = subprocess.run([sys.executable, "-c", CASE, str(data), mode], env=env, cwd=tree,
                          capture_output=True, text=True)
     if out.returncode:
         print(f"    failed: {out.stderr.strip().splitlines()[-1]}", flush=True)
