@@ -61,7 +61,8 @@ def fit_joint(observations, settings, progress=None):
     say = progress or (lambda text: None)
     model = build_model(observations, settings)
     say(f"searching starting orbits for {plural(len(model.stars), 'star')}")
-    start = find_start(_start_model(model), settings)  # effects: see deepwell.model.effects
+    start = find_start(_start_model(model), settings,  # effects: see deepwell.model.effects
+                       progress=say if _is_large(model) else None)
     model, start_vec = model.start_from(start.vec, settings)
     start.notes.extend(model.effect_notes())
     dropped = {star for star, _, _ in observations.dropped_stars}
@@ -83,7 +84,7 @@ def fit_joint(observations, settings, progress=None):
                          file=str(observations.folder))
     vec0 = np.clip(start_vec, lo, hi)
     say(f"joint fit of {plural(int(free.sum()), 'parameter')} to {model.n_data} data")
-    vec, sol = minimise(model, vec0, free, lo, hi)
+    vec, sol = minimise(model, vec0, free, lo, hi, progress=say if _is_large(model) else None)
     notes = list(start.notes)
     if model.datasets is not None and model.datasets.mixture:  # see deepwell.model.likelihood
         vec, sol, note = restart_without_outliers(model, vec, sol, settings, free, lo, hi)
@@ -129,6 +130,11 @@ def thinned(frame, max_rows=START_ROWS):
                                     .astype(int))]
         keep.append(rows.index.to_numpy()[order])
     return frame.loc[np.sort(np.concatenate(keep))]
+
+
+def _is_large(model):
+    """Data large enough for progress lines within each phase (many rows or stars)."""
+    return model.n_data > 100_000 or len(model.stars) > 20
 
 
 def _start_model(model):

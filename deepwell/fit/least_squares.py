@@ -6,6 +6,12 @@ fixed parameters and Gaussian priors, with a vectorised grouped Jacobian
 (:mod:`deepwell.fit.jacobian`).  :func:`covariance` gives the covariance of
 the free internal parameters from J^T J at the solution.  The stated errors
 are used as given: the covariance is *not* rescaled by the reduced chi-square.
+
+Large problems, whose dense Jacobian (residual rows x free parameters) would
+exceed :data:`DENSE_CELLS` numbers, are solved on the normal equations
+accumulated star by star instead (:mod:`deepwell.fit.normal`): the same
+minimum and the same J^T J covariance in memory that grows with the rows
+times (shared parameters + 6) only.
 """
 
 import lmfit
@@ -14,8 +20,18 @@ import numpy as np
 from deepwell.core.parameters import STAR_INTERNAL
 
 from .jacobian import default_steps, numerical_jacobian
+from .normal import minimise_normal, normal_covariance
 
-__all__ = ["bounds", "minimise", "covariance"]
+__all__ = ["DENSE_CELLS", "bounds", "minimise", "covariance", "uses_normal_equations"]
+
+#: Largest dense Jacobian (residual rows x free parameters, 8 bytes each) handed to
+#: scipy's trust-region solver; larger problems use the accumulated normal equations.
+DENSE_CELLS = 4_000_000
+
+
+def uses_normal_equations(model, free):
+    """True when the fit of ``model`` goes through the accumulated normal equations."""
+    return len(model.residual_owner()) * int(np.sum(free)) > DENSE_CELLS
 
 
 def bounds(model, settings):
@@ -51,6 +67,8 @@ def covariance(model, vec, free):
     steps = default_steps(model, vec)
     if not np.any(free):
         return np.zeros((0, 0)), 0
+    if uses_normal_equations(model, free):
+        return normal_covariance(model, vec, free)
     for _ in range(2):
         jac = numerical_jacobian(model.residuals, vec, free, steps, model.layout,
                                  model.residual_owner())
@@ -64,22 +82,26 @@ def covariance(model, vec, free):
     return cov, rank_deficient
 
 
-def minimise(model, vec0, free, lo, hi, max_nfev=None, restarts=8):
+def minimise(model, vec0, free, lo, hi, max_nfev=None, restarts=8, progress=None):
     """Least-squares minimum of the model residuals over the ``free`` entries.
 
     lmfit drives scipy's trust-region reflective method with the bounds and a
     vectorised central-difference Jacobian (all trial vectors in one model
     call, so a Jacobian costs about one model evaluation per star block
-    rather than one per parameter).
+    rather than one per parameter).  Problems larger than :data:`DENSE_CELLS`
+    go to :func:`deepwell.fit.normal.minimise_normal` (``progress`` then gets
+    one line per iteration).
 
     Returns
     -------
     vec : ndarray
         The best internal vector.
-    out : lmfit.MinimizerResult
+    out : lmfit.MinimizerResult or deepwell.fit.normal.NormalResult
         With ``success``, ``message`` and ``nfev``.
     """
     vec0 = np.asarray(vec0, float)
+    if uses_normal_equations(model, free):
+        return minimise_normal(model, vec0, free, lo, hi, progress=progress)
     names = [f"x{i}" for i in range(model.layout.size)]  # lmfit wants identifiers
     params = lmfit.Parameters()
     for i, name in enumerate(names):

@@ -36,6 +36,8 @@ from deepwell.model.layout import internal_star_values
 
 __all__ = ["Candidate", "grid_search", "StartResult", "find_start"]
 
+#: Grid cells (periods x eccentricities x phases x epochs) evaluated in one call.
+GRID_CELLS = 400_000
 _ECC_GRID = np.array([0.0, 0.2, 0.4, 0.55, 0.67, 0.76, 0.83, 0.88, 0.92, 0.95, 0.97, 0.985])
 
 
@@ -91,14 +93,18 @@ def _velocity_chi2(vr, wv, vm, free_offset):
 
 
 def _grid_point_chi2(d, period, ecc, tp, mass, dist, a_tol):
-    """Chi-square on an (e, t_peri) grid at one period; sign picks the node."""
+    """Chi-square on an (e, t_peri) grid at some periods; sign picks the node.
+
+    ``period`` has shape (n_p, 1, 1, 1) (or is a scalar), ``ecc`` (n_e, 1, 1) and
+    ``tp`` (n_p, 1, n_phase, 1); results have shape (n_p, n_e, n_phase).
+    """
     X, Y = _xy(d["t"], period, ecc, tp)
     abfg, chi2 = _linear_ti(X, Y, d["east"], d["north"], d["w"])
     sign = np.ones_like(chi2)
     if mass is None:
         return chi2, sign, abfg
     a, inc, _, peri_arg = elements_from_thiele_innes(*abfg)
-    a_k = float(a_from_period(period, mass, dist))
+    a_k = a_from_period(np.asarray(period, float)[..., 0], mass, dist)
     chi2 = chi2 + ((a - a_k) / (a_tol * a_k)) ** 2
     if d["tv"].size:
         dX, dY = _xy(d["tv"], period, ecc, tp, rates=True)
@@ -141,13 +147,19 @@ def grid_search(d, mass=None, dist=None, n_period=120, n_phase=32, keep=4, a_tol
     t_mid = np.average(t, weights=d["w"])
     ecc = _ECC_GRID[:, None, None]
     best = []
-    for period in np.geomspace(lo, hi, n_period):
-        tp = (t_mid + (phases - 0.5) * period)[None, :, None]
-        chi2, sign, abfg = _grid_point_chi2(d, period, ecc, tp, mass, dist, a_tol)
-        k = np.unravel_index(np.argmin(chi2), chi2.shape)
-        best.append(Candidate(period, float(_ECC_GRID[k[0]]), float(tp[0, k[1], 0]),
-                              tuple(float(v[k]) for v in abfg), float(chi2[k]),
-                              float(sign[k])))
+    periods = np.geomspace(lo, hi, n_period)
+    # several periods per vectorised call (the same numbers as one period at a time)
+    chunk = max(1, GRID_CELLS // (ecc.size * n_phase * max(t.size, d["tv"].size, 1)))
+    for i in range(0, n_period, chunk):
+        per = periods[i:i + chunk, None, None, None]
+        tp = (t_mid + (phases - 0.5) * periods[i:i + chunk, None])[:, None, :, None]
+        chi2s, signs, abfgs = _grid_point_chi2(d, per, ecc, tp, mass, dist, a_tol)
+        for j, period in enumerate(periods[i:i + chunk]):
+            chi2, sign = chi2s[j], np.broadcast_to(signs, chi2s.shape)[j]
+            k = np.unravel_index(np.argmin(chi2), chi2.shape)
+            best.append(Candidate(period, float(_ECC_GRID[k[0]]), float(tp[j, 0, k[1], 0]),
+                                  tuple(float(v[j][k]) for v in abfgs), float(chi2[k]),
+                                  float(sign[k])))
     best.sort(key=lambda c: c.chi2)
     chosen = []
     for cand in best:
@@ -253,7 +265,7 @@ def _scale_from_stars(model, data, res):
     return dists, dist_w, rows
 
 
-def find_start(model, settings, shared_start=None):
+def find_start(model, settings, shared_start=None, progress=None):
     """Starting internal vector for the joint fit of ``model``.
 
     Parameters
@@ -262,6 +274,8 @@ def find_start(model, settings, shared_start=None):
     settings : deepwell.tables.settings.Settings
     shared_start : dict, optional
         Starting values of shared parameters that override the search.
+    progress : callable, optional
+        Called with one line per star searched (for long searches).
 
     Returns
     -------
@@ -300,7 +314,9 @@ def find_start(model, settings, shared_start=None):
     # with the star's own mass free (the distance held), so that a small error
     # of the starting mass does not trap a precisely measured orbit
     own_mass, own_w = [], []
+    say = progress or (lambda text: None)
     for k, d in enumerate(data):
+        say(f"starting orbit of {model.stars[k]} (star {k + 1} of {len(data)})")
         cands = grid_search(d, mass=mass, dist=dist)
         cands = _distinct([_refine_sky(d, c) for c in cands] + cands)
         star = model.stars[k]

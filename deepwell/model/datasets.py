@@ -292,29 +292,21 @@ class DatasetTerms:
     def n_norm_rows(self):
         return sum(1 for *_, t in self.terms if t in ("scale", "jitter"))
 
-    def information_jacobian(self, model, jac, vec, free):
-        """Jacobian rows for the covariance: exact Fisher information of the error terms.
+    def fisher_information(self, model, vec):
+        """Exact Fisher information of each fitted error term.
 
-        ``jac`` is the numerical Jacobian of ``model.residuals`` over the free
-        entries.  The columns of error terms are zeroed on the data rows, the
-        normalisation rows are replaced by rows whose J^T J is the Fisher
-        information 1/2 tr(C^-1 dC C^-1 dC) of each error term (terms of
-        different sets touch different rows, so the block is diagonal).
+        Returns
+        -------
+        dict
+            {parameter name: 1/2 tr(C^-1 dC C^-1 dC) summed over the term's rows}
+            (in 1 / (the term's unit)^2), for every ``scale`` and ``jitter`` term.
         """
-        names = model.layout.names()
-        cols = {names[i]: c for c, i in enumerate(np.flatnonzero(free))}
-        n_data = model.n_data
-        n_norm = self.n_norm_rows()
-        start = n_data + (1 if self.mixture else 0)
-        jac = jac.copy()
         sa, sd, rho, sv, _ = self.errors(model, vec)
         v = self._values(model, vec)
-        new_rows = []
+        out = {}
         for name, kind, d, term in self.terms:
-            if term not in ("scale", "jitter") or name not in cols:
+            if term not in ("scale", "jitter"):
                 continue
-            c = cols[name]
-            jac[:n_data, c] = 0.0
             val = float(np.ravel(v[name])[0])
             if kind == "p":
                 m = self.pos_index == self.pos_sets.index(d)
@@ -330,11 +322,36 @@ class DatasetTerms:
                     info = 2.0 * m.sum() / val**2
                 else:
                     info = 2.0 * val**2 * np.sum(1.0 / sv[m] ** 4)
+            out[name] = float(info)
+        return out
+
+    def norm_row_slice(self, model):
+        """The residual rows of the normalisation terms (after the data and the mixture row)."""
+        start = model.n_data + (1 if self.mixture else 0)
+        return slice(start, start + self.n_norm_rows())
+
+    def information_jacobian(self, model, jac, vec, free):
+        """Jacobian rows for the covariance: exact Fisher information of the error terms.
+
+        ``jac`` is the numerical Jacobian of ``model.residuals`` over the free
+        entries.  The columns of error terms are zeroed on the data rows, the
+        normalisation rows are replaced by rows whose J^T J is the Fisher
+        information 1/2 tr(C^-1 dC C^-1 dC) of each error term (terms of
+        different sets touch different rows, so the block is diagonal).
+        """
+        names = model.layout.names()
+        cols = {names[i]: c for c, i in enumerate(np.flatnonzero(free))}
+        n_data = model.n_data
+        jac = jac.copy()
+        new_rows = []
+        for name, info in self.fisher_information(model, vec).items():
+            if name not in cols:
+                continue
+            c = cols[name]
+            jac[:n_data, c] = 0.0
             row = np.zeros(jac.shape[1])
             row[c] = np.sqrt(info)
             new_rows.append(row)
         keep = np.ones(len(jac), bool)
-        keep[start:start + n_norm] = False
+        keep[self.norm_row_slice(model)] = False
         return np.vstack([jac[keep]] + new_rows) if new_rows else jac[keep]
-
-

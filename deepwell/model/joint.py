@@ -292,20 +292,16 @@ class JointModel:
         s = self._star_all
         fx = self.effects
         if not fx.romer and not self.integrated.any():
-            return keplerian_track(
-                self._t_all, el["a"][..., s], el["e"][..., s], el["inc"][..., s],
-                el["node"][..., s], el["peri_arg"][..., s], el["t_peri"][..., s],
-                el["period"][..., s], dist,
-            )
+            return keplerian_track(self._t_all, el["a"], el["e"], el["inc"], el["node"],
+                                   el["peri_arg"], el["t_peri"], el["period"], dist, star=s)
         shape = vec.shape[:-1] + (len(s),)
         out = {k: np.empty(shape) for k in ("east", "north", "z", "v_east", "v_north", "v_z")}
         kep = np.flatnonzero(~self.integrated[s])
         if kep.size:
             sk = s[kep]
             tr, _ = keplerian_emission_track(
-                self._t_all[kep], el["a"][..., sk], el["e"][..., sk], el["inc"][..., sk],
-                el["node"][..., sk], el["peri_arg"][..., sk], el["t_peri"][..., sk],
-                el["period"][..., sk], dist, romer=fx.romer)
+                self._t_all[kep], el["a"], el["e"], el["inc"], el["node"], el["peri_arg"],
+                el["t_peri"], el["period"], dist, romer=fx.romer, star=sk)
             for k in out:
                 out[k][..., kep] = getattr(tr, k)
         if self.integrated.any():

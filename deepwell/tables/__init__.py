@@ -9,8 +9,9 @@ from .datasets import DatasetConfig, datasets_from_args, parse_datasets
 from .effects import Effects, effects_from_args, parse_effects
 from .observations import DataWarning, Observations, read_observations
 from .settings import Settings, SharedSetting, StarSetting, load_settings, parse_settings
+from .size import check_memory, input_size
 
 __all__ = ["Observations", "DataWarning", "read_observations", "Settings", "SharedSetting",
            "StarSetting", "load_settings", "parse_settings", "Effects", "parse_effects",
            "effects_from_args", "DatasetConfig", "parse_datasets", "datasets_from_args",
-           "ExternalConstraints", "read_external_constraints"]
+           "ExternalConstraints", "read_external_constraints", "check_memory", "input_size"]

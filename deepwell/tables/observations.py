@@ -33,6 +33,8 @@ from deepwell.core.constants import C_KMS
 from deepwell.core.errors import InputError, SettingsError
 from deepwell.core.units import UNITS
 
+from .size import check_memory
+
 __all__ = ["DataWarning", "Observations", "read_positions", "read_velocities",
            "read_observations", "EPOCH_RANGE", "control_characters", "check_column_map"]
 
@@ -494,6 +496,7 @@ def read_observations(folder, min_epochs=3, strict=False, columns=None):
     if pos_path is None:
         raise InputError("no positions table (positions.csv, .ecsv, .mrt or .cds)",
                          file=str(folder))
+    check_memory([pos_path, vel_path])
     columns = columns or {}
     pos, digest = _read(pos_path, "positions", columns.get("positions"))
     checksums = {pos_path.name: digest}

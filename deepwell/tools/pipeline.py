@@ -17,7 +17,7 @@ from deepwell.fit import fit_joint, sample_posterior
 from deepwell.fit.sampling import SamplingError, SamplingWarning
 from deepwell.report import discard_output, install_output, prepare_output, write_report
 from deepwell.results import analyse
-from deepwell.tables import read_external_constraints, read_observations
+from deepwell.tables import input_size, read_external_constraints, read_observations
 
 __all__ = ["FitJob", "fit_report", "chains_folder", "described_epoch", "epoch_settings"]
 
@@ -119,6 +119,7 @@ def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=No
     say = progress or (lambda text: None)
     replace = replace or job.resume
     settings = epoch_settings(scenario, settings, say)
+    say(f"reading {input_size(scenario)} of observations in {scenario}")
     obs = read_observations(scenario, min_epochs=settings.min_epochs, strict=job.strict,
                             columns=settings.columns)
     external = read_external_constraints(job.external) if job.external else None

@@ -29,6 +29,7 @@ __all__ = [
     "kepler_xy",
     "OrbitTrack",
     "keplerian_track",
+    "per_epoch",
     "elements_from_thiele_innes",
     "position_angle_separation",
     "gm_angular",
@@ -149,7 +150,7 @@ class OrbitTrack:
     v_z: np.ndarray
 
 
-def keplerian_track(t, a, ecc, inc, node, peri_arg, t_peri, period, distance):
+def keplerian_track(t, a, ecc, inc, node, peri_arg, t_peri, period, distance, star=None):
     """Keplerian sky track and radial velocity, broadcast over all inputs.
 
     Parameters
@@ -168,13 +169,20 @@ def keplerian_track(t, a, ecc, inc, node, peri_arg, t_peri, period, distance):
         Period (yr).
     distance : array_like
         Distance (pc), converts angular rates into km/s.
+    star : array_like of int, optional
+        Index of the element set of each epoch: the elements then have one
+        entry per star in their last axis, and the Thiele-Innes constants are
+        computed once per star rather than once per epoch (same values).
 
     Returns
     -------
     OrbitTrack
     """
-    east, north, z, v_east, v_north, v_z = _sky_state(t, a, ecc, inc, node, peri_arg, t_peri,
-                                                      period)
+    consts, (period, ecc, t_peri) = per_epoch(star, thiele_innes(a, inc, node, peri_arg),
+                                              (period, ecc, t_peri))
+    X, Y, dX, dY = kepler_xy(t, period, ecc, t_peri)
+    east, north, z = to_sky(consts, X, Y)
+    v_east, v_north, v_z = to_sky(consts, dX, dY)
     mas_per_yr_to_kms = np.asarray(distance) * 1e-3 * KMS_PER_AU_PER_YR
     return OrbitTrack(east=east, north=north, z=z, v_east=v_east, v_north=v_north,
                       v_z=v_z * mas_per_yr_to_kms)
@@ -209,6 +217,29 @@ def to_sky(constants, X, Y):
     """
     A, B, F, G, C, H = constants
     return B * X + G * Y, A * X + F * Y, C * X + H * Y
+
+
+def per_epoch(star, consts, elements):
+    """Thiele-Innes constants and elements taken at each epoch's star (unchanged if None).
+
+    Parameters
+    ----------
+    star : array_like of int or None
+        Star index of each epoch.
+    consts : tuple of ndarray
+        Constants with one entry per star in the last axis.
+    elements : tuple of array_like
+        Further per-star elements (e.g. period, eccentricity, pericentre epoch).
+
+    Returns
+    -------
+    consts, elements : tuple of ndarray
+        The same, indexed with ``star`` along the last axis.
+    """
+    if star is None:
+        return consts, elements
+    return (tuple(np.take(c, star, axis=-1) for c in consts),
+            tuple(np.take(x, star, axis=-1) for x in elements))
 
 
 def _sky_state(t, a, ecc, inc, node, peri_arg, t_peri, period):

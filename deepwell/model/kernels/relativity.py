@@ -29,7 +29,7 @@ from deepwell.core.constants import (
     SCHWARZSCHILD_M_PER_MSUN,
 )
 
-from .orbit import OrbitTrack, kepler_xy, thiele_innes, to_sky
+from .orbit import OrbitTrack, kepler_xy, per_epoch, thiele_innes, to_sky
 from .post_newtonian import (
     IntegratedStates,
     PhysicalTrack,
@@ -330,11 +330,12 @@ def effect_sizes(a_au, e, mass, distance_pc, inc, peri_arg):
 
 # ------------------------------------------------------------------ model pieces
 def keplerian_emission_track(t, a, ecc, inc, node, peri_arg, t_peri, period, distance,
-                             romer=True, n_newton=2):
+                             romer=True, n_newton=2, star=None):
     """Keplerian track at the emission epochs of light observed at ``t``.
 
     Parameters are those of :func:`deepwell.model.kernels.orbit.keplerian_track` (``a`` in
-    mas, angles in radians, epochs in Julian yr, ``distance`` in pc).
+    mas, angles in radians, epochs in Julian yr, ``distance`` in pc; with ``star`` the
+    elements are per star and ``star`` gives the star of each epoch).
 
     Returns
     -------
@@ -350,7 +351,8 @@ def keplerian_emission_track(t, a, ecc, inc, node, peri_arg, t_peri, period, dis
     hundred seconds near a tight pericentre, the second well below 1 s
     (physics.md sect. 4).
     """
-    consts = thiele_innes(a, inc, node, peri_arg)
+    consts, (period, ecc, t_peri) = per_epoch(star, thiele_innes(a, inc, node, peri_arg),
+                                              (period, ecc, t_peri))
     C, H = consts[4], consts[5]
     t = np.asarray(t, dtype=float)
     t_em = t
