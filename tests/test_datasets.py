@@ -24,6 +24,7 @@ from deepwell.tables.effects import effects_from_args
 from deepwell.tables.observations import read_observations
 from deepwell.tables.settings import Settings, parse_settings
 from deepwell.tools.simulate import write_scenario
+from tests.conftest import one_line_error
 
 TRUE_MASS, TRUE_DIST = 2.6e6, 5200.0
 OFFSET = (3.0, -2.0)  # mas, added to imager-B
@@ -201,6 +202,19 @@ def test_excluded_rows_leave_the_model_but_not_the_table(shifted):
     assert len(read_observations(shifted).positions) == len(obs.positions)
     with pytest.raises(SettingsError, match="no data row"):
         build_model(obs, datasets_from_args(newtonian(), exclude_rows=[("positions.csv", 9999)]))
+
+
+def test_an_excluded_row_missing_from_the_data_names_the_settings_file(shifted, tmp_path,
+                                                                       capsys):
+    from deepwell.cli import main
+
+    settings = tmp_path / "exclusions.toml"
+    settings.write_text('[fit]\nexclude_rows = [{file = "positions.csv", line = 9999}]\n')
+    code = main(["fit", str(shifted), "--out", str(tmp_path / "out"), "--settings",
+                 str(settings), "--no-figures", "-q"])
+    line = one_line_error(capsys)
+    assert code == 2 and "exclusions.toml" in line and "line 9999" in line
+    assert not (tmp_path / "out").exists()
 
 
 # ------------------------------------------------------- likelihood identity
