@@ -178,7 +178,7 @@ def latex_effects(result, sizes):
         r"pericentre advance per orbit (angle and sky shift), peak-to-peak R\o mer delay, and "
         r"the star's smallest position and median velocity error. An effect counts as "
         r"detectable when the expected $\Delta\chi^2$ between the models with and without it, "
-        r"at the star's epochs and errors with its orbital elements refitted (linearised), "
+        r"at the star's epochs and errors with the fit's parameters refitted (linearised), "
         r"is at least " + f"{DETECTABLE_DCHI2:g}" + r".}",
         r"\label{tab:deepwell-effects}", r"\begin{tabular}{lccccccccc}", r"\toprule",
         r"Star & $\Delta v_\mathrm{z}$ & $\Delta\omega$ & sky shift & R\o mer & "

@@ -55,8 +55,8 @@ def effects_block(result, sizes):
 
 
 def _dchi2(value):
-    """An expected chi-square difference to two significant figures (below 0.1: '<0.1')."""
-    return "<0.1" if value < 0.1 else f"{value:.2g}"
+    """An expected chi-square difference: two significant figures, whole numbers from 10."""
+    return "<0.1" if value < 0.1 else f"{value:.2g}" if value < 10 else f"{value:.0f}"
 
 
 def _yes(flag):

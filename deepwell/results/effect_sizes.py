@@ -30,10 +30,11 @@ __all__ = ["star_effect_sizes", "pericentre_epochs", "extended_mass_limits",
 
 DETECTABLE_RULE = (
     "an effect counts as detectable when the expected chi-square difference between the "
-    "models with and without it, at the star's actual epochs and fitted errors and after "
-    "the star's orbital elements are refitted (linearised; mass, distance and frame held), "
-    f"is at least {DETECTABLE_DCHI2:g} (about 3 sigma); the effect sizes beside it are "
-    "single-epoch numbers for orientation only")
+    "models with and without it, at the star's actual epochs and fitted errors, after a "
+    "linearised refit of every fitted parameter except the effect strengths (the star's "
+    "elements, mass, distance, frame and data-set terms), is at least "
+    f"{DETECTABLE_DCHI2:g} (about 3 sigma); the effect sizes beside it are single-epoch "
+    "numbers for orientation only")
 
 
 def _star_elements(result, k):
