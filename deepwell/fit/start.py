@@ -232,23 +232,32 @@ def _star_data(model, k, shared=None):
     return out
 
 
+#: The start search is centred on the data when their centre is this many times
+#: farther from the origin than their own extent, with at least this many stars.
+FAR_FACTOR, FAR_MIN_STARS = 3.0, 3
+
+
 def _far_centre(model):
     """(east, north) mas centre of the frame-relative positions if the origin lies outside them.
 
     The centre is the median over stars of each star's median position; when it is
-    farther from the origin than every frame-relative position is from it, the origin
-    (where the search assumes the mass) cannot be inside the orbits.  None otherwise.
+    more than :data:`FAR_FACTOR` times farther from the origin than any frame-relative
+    position is from it, with at least :data:`FAR_MIN_STARS` stars, the origin (where
+    the search assumes the mass) cannot be inside the orbits.  None otherwise (one
+    star on a partial arc near apocentre may well lie to one side of its mass).
     """
     pos = model.pos
     frame = pos.frame > 0
     if not frame.any():
         return None
     stars = np.unique(pos.star[frame])
+    if stars.size < FAR_MIN_STARS:
+        return None
     med = np.array([[np.median(pos.ra[frame & (pos.star == k)]),
                      np.median(pos.dec[frame & (pos.star == k)])] for k in stars])
     centre = np.median(med, axis=0)
     reach = np.max(np.hypot(pos.ra[frame] - centre[0], pos.dec[frame] - centre[1]))
-    if np.hypot(*centre) <= reach:
+    if np.hypot(*centre) <= FAR_FACTOR * reach:
         return None
     return float(centre[0]), float(centre[1])
 
@@ -304,7 +313,7 @@ def find_start(model, settings, shared_start=None):
         frame = tuple(shared[n] for n in ("x0", "y0", "vx0", "vy0", "vz0"))
         res.notes.append(
             f"the frame-relative positions lie far from the frame origin (their centre is "
-            f"{np.hypot(*centre):.4g} mas away, beyond every star's positions): the start "
+            f"{np.hypot(*centre):.4g} mas away, far beyond every star's positions): the start "
             f"search was centred on ({centre[0]:.6g}, {centre[1]:.6g}) mas instead of "
             "assuming the mass near the origin; check x0, y0")
     data = [_star_data(model, k, shared=frame) for k in range(len(model.stars))]
