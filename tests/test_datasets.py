@@ -11,7 +11,6 @@ import json
 import textwrap
 
 import numpy as np
-import pandas as pd
 import pytest
 from scipy import stats
 
@@ -25,11 +24,12 @@ from deepwell.tables.effects import effects_from_args
 from deepwell.tables.observations import read_observations
 from deepwell.tables.settings import Settings, parse_settings
 from deepwell.tools.simulate import write_scenario
+from tests.conftest import one_line_error
 
 TRUE_MASS, TRUE_DIST = 2.6e6, 5200.0
 OFFSET = (3.0, -2.0)  # mas, added to imager-B
 ZERO_POINT = 30.0  # km/s, added to spec-2
-UNDERSTATED = 2.0  # imager-B's stated errors are the true ones divided by this
+UNDERSTATED = 2.0  # imager-B's true scatter is this times its stated errors
 
 # An invented nucleus; no real object is behind these numbers.
 DESCRIPTION = textwrap.dedent("""
@@ -90,7 +90,7 @@ DESCRIPTION = textwrap.dedent("""
     start = 2009.5
     end = 2022.0
     cadence = 1.0
-    error = [0.3, 0.5]
+    error = [0.15, 0.25]
     [[campaigns]]
     dataset = "spec-1"
     kind = "velocities"
@@ -106,24 +106,28 @@ DESCRIPTION = textwrap.dedent("""
     end = 2022.0
     cadence = 1.0
     error = [8.0, 10.0]
+    [systematics.imager-B]
+    offset = [3.0, -2.0]
+    error_factor = 2.0
+    [systematics.spec-2]
+    zero_point = 30.0
 """)
 
 
 @pytest.fixture(scope="module")
 def shifted(tmp_path_factory):
-    """Scenario folder with the injected offset, zero-point and under-stated errors."""
+    """Scenario folder with the injected offset, zero-point and under-stated errors.
+
+    Injected by ``deepwell simulate`` itself (the ``[systematics]`` tables), so the
+    simulator's systematics and the fitter's data-set terms are checked together.
+    """
     root = tmp_path_factory.mktemp("datasets")
     (root / "d.toml").write_text(DESCRIPTION)
     folder = write_scenario(root / "d.toml", root / "data")
-    pos = pd.read_csv(folder / "positions.csv")
-    vel = pd.read_csv(folder / "velocities.csv")
-    b = pos["dataset"] == "imager-B"
-    pos.loc[b, "ra"] += OFFSET[0]
-    pos.loc[b, "dec"] += OFFSET[1]
-    pos.loc[b, ["ra_err", "dec_err"]] /= UNDERSTATED
-    vel.loc[vel["dataset"] == "spec-2", "vr"] += ZERO_POINT
-    pos.to_csv(folder / "positions.csv", index=False)
-    vel.to_csv(folder / "velocities.csv", index=False)
+    truth = json.loads((folder / "truth.json").read_text())["systematics"]
+    assert truth["imager-B"] == {"offset": list(OFFSET), "zero_point": 0.0,
+                                 "error_factor": UNDERSTATED}
+    assert truth["spec-2"]["zero_point"] == ZERO_POINT
     return folder
 
 
@@ -198,6 +202,19 @@ def test_excluded_rows_leave_the_model_but_not_the_table(shifted):
     assert len(read_observations(shifted).positions) == len(obs.positions)
     with pytest.raises(SettingsError, match="no data row"):
         build_model(obs, datasets_from_args(newtonian(), exclude_rows=[("positions.csv", 9999)]))
+
+
+def test_an_excluded_row_missing_from_the_data_names_the_settings_file(shifted, tmp_path,
+                                                                       capsys):
+    from deepwell.cli import main
+
+    settings = tmp_path / "exclusions.toml"
+    settings.write_text('[fit]\nexclude_rows = [{file = "positions.csv", line = 9999}]\n')
+    code = main(["fit", str(shifted), "--out", str(tmp_path / "out"), "--settings",
+                 str(settings), "--no-figures", "-q"])
+    line = one_line_error(capsys)
+    assert code == 2 and "exclusions.toml" in line and "line 9999" in line
+    assert not (tmp_path / "out").exists()
 
 
 # ------------------------------------------------------- likelihood identity

@@ -198,3 +198,26 @@ def test_start_search_on_thinned_rows_reaches_the_chi2_of_a_start_at_the_truth(t
     lo, hi, free = bounds(model, settings)
     vec, _ = minimise(model, truth_vector(model, folder), free, lo, hi)
     assert res.chi2 <= model.chi2(vec) + 0.05  # the same minimum (a fraction of 1 sigma)
+
+
+def test_a_frame_far_from_the_origin_is_found_and_said(small_scenario, tmp_path, small_fit):
+    # Injection: the same invented data with the frame moved by (1e4, -5e3) mas. Positions
+    # are differences, so the fitted orbits and mass must equal those of the original fit
+    # (to 5% of the mass error: the same least-squares problem re-parametrised, common practice)
+    # and x0, y0 must move by exactly the shift within 3 sigma.
+    import shutil
+
+    import pandas as pd
+
+    far = tmp_path / "far"
+    shutil.copytree(small_scenario, far)
+    pos = pd.read_csv(far / "positions.csv")
+    frame = pos["relative_to"] == "frame"
+    pos.loc[frame, "ra"] += 1e4
+    pos.loc[frame, "dec"] -= 5e3
+    pos.to_csv(far / "positions.csv", index=False)
+    fit = fit_joint(read_observations(far), Settings())
+    assert any("far from the frame origin" in n for n in fit.notes)
+    assert abs(fit.value("mass") - small_fit.value("mass")) < 0.05 * small_fit.sigma("mass")
+    assert abs(fit.value("x0") - 1e4 - small_fit.value("x0")) < 3 * small_fit.sigma("x0")
+    assert abs(fit.value("y0") + 5e3 - small_fit.value("y0")) < 3 * small_fit.sigma("y0")

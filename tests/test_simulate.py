@@ -339,3 +339,65 @@ def test_high_cadence_campaigns_give_no_duplicate_rows(tmp_path):
     assert not pos.duplicated(["star", "epoch", "dataset"]).any()
     folder = write_scenario(_write(tmp_path, dense, "e.toml"), tmp_path / "scen")
     assert len(read_observations(folder).positions) == len(pos)
+
+
+SYSTEMATICS = """
+[systematics.pos]
+offset = [2.5, -1.5]
+error_factor = 3.0
+
+[systematics.rv]
+zero_point = 25.0
+error_factor = 0.5
+"""
+
+
+def test_systematics_shift_the_data_and_scale_the_true_scatter(tmp_path):
+    # Same seed with and without systematics: the random draws are the same, so the
+    # difference is the offset (zero-point) plus (factor - 1) times the honest noise,
+    # and the noise about the independent model is unit-normal once divided by
+    # factor x stated error (physics.md section 3 for the model; rounding 1e-4 mas,
+    # 1e-3 km/s).
+    plain = simulate(load_description(_write(tmp_path, BASE, "p.toml")))
+    desc = load_description(_write(tmp_path, BASE + SYSTEMATICS, "s.toml"))
+    data = simulate(desc)
+    truth = truth_parameters(desc)
+    pos, vel = data.positions, data.velocities
+    assert pos.epoch.tolist() == plain.positions.epoch.tolist()
+    scale = truth["mass"], truth["distance"]
+    z_ra, z_rv = [], []
+    for name, star in truth["stars"].items():
+        p = pos[pos.star == name]
+        east, _, _ = _independent_model(p.epoch.to_numpy(), star, *scale)
+        dt = p.epoch.to_numpy() - 2010.0
+        honest = p.ra.to_numpy() - truth["x0"] - truth["vx0"] * dt - east - 2.5
+        z_ra.append(honest / (3.0 * p.ra_err.to_numpy()))
+        v = vel[vel.star == name]
+        _, _, vz = _independent_model(v.epoch.to_numpy(), star, *scale)
+        z_rv.append((v.vr.to_numpy() - truth["vz0"] - vz - 25.0) / (0.5 * v.vr_err.to_numpy()))
+    for z in (z_ra, z_rv):
+        _standard_normal_checks(np.concatenate(z))
+    # exact: with - without = offset + (f - 1) (without - noiseless); check on the mean
+    d_dec = pos.dec.to_numpy() - plain.positions.dec.to_numpy()
+    assert abs(np.mean(d_dec) - (-1.5)) < 5 * 2.0 * np.sqrt(np.mean(pos.dec_err**2) / len(pos))
+    record = json.loads(json.dumps(data.truth))
+    assert record["systematics"] == {
+        "pos": {"offset": [2.5, -1.5], "zero_point": 0.0, "error_factor": 3.0},
+        "rv": {"offset": [0.0, 0.0], "zero_point": 25.0, "error_factor": 0.5}}
+    assert record["units"]["offset"] == "mas" and record["units"]["zero_point"] == "km / s"
+
+
+@pytest.mark.parametrize(("text", "key", "match"), [
+    ("[systematics.rv]\noffset = [1.0, 2.0]\n", "offset", "frame-relative positions only"),
+    ("[systematics.pos]\nzero_point = 3.0\n", "zero_point", "velocity data sets only"),
+    ("[systematics.nowhere]\nzero_point = 3.0\n", "zero_point", "observed by no campaign"),
+    ("[systematics.pos]\nerror_factor = 0.0\n", "error_factor", "must be in"),
+    ("[systematics.pos]\nwobble = 1.0\n", "wobble", "unknown key"),
+])
+def test_bad_systematics_name_key_and_line(tmp_path, text, key, match):
+    full = BASE + "\n" + text
+    with pytest.raises(SettingsError, match=match) as info:
+        load_description(_write(tmp_path, full))
+    assert info.value.column == key
+    assert info.value.row == _line_of(full, next(x for x in text.splitlines()
+                                                 if x.startswith(key)))

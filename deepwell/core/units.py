@@ -35,6 +35,7 @@ UNITS = {
     "romer_rv_kms": "km / s", "romer_sky_mas": "mas", "min_position_error_mas": "mas",
     "median_velocity_error_kms": "km / s", "osculating_epoch": "yr", "integrated_period": "yr",
     "pericentre_emitted": "yr", "pericentre_observed": "yr",
+    "dchi2_romer": "", "dchi2_redshift": "", "dchi2_precession": "",
     # planning
     "ra_frame": "mas", "dec_frame": "mas", "sep": "mas", "start": "yr", "end": "yr",
     "closest_epoch": "yr", "min_separation": "mas",

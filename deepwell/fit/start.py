@@ -244,6 +244,36 @@ def _star_data(model, k, shared=None):
     return out
 
 
+#: The start search is centred on the data when their centre is this many times
+#: farther from the origin than their own extent, with at least this many stars.
+FAR_FACTOR, FAR_MIN_STARS = 3.0, 3
+
+
+def _far_centre(model):
+    """(east, north) mas centre of the frame-relative positions if the origin lies outside them.
+
+    The centre is the median over stars of each star's median position; when it is
+    more than :data:`FAR_FACTOR` times farther from the origin than any frame-relative
+    position is from it, with at least :data:`FAR_MIN_STARS` stars, the origin (where
+    the search assumes the mass) cannot be inside the orbits.  None otherwise (one
+    star on a partial arc near apocentre may well lie to one side of its mass).
+    """
+    pos = model.pos
+    frame = pos.frame > 0
+    if not frame.any():
+        return None
+    stars = np.unique(pos.star[frame])
+    if stars.size < FAR_MIN_STARS:
+        return None
+    med = np.array([[np.median(pos.ra[frame & (pos.star == k)]),
+                     np.median(pos.dec[frame & (pos.star == k)])] for k in stars])
+    centre = np.median(med, axis=0)
+    reach = np.max(np.hypot(pos.ra[frame] - centre[0], pos.dec[frame] - centre[1]))
+    if np.hypot(*centre) <= FAR_FACTOR * reach:
+        return None
+    return float(centre[0]), float(centre[1])
+
+
 def _scale_from_stars(model, data, res):
     """Distance and mass from sky-only orbits and velocities of every star."""
     dists, dist_w, rows = [], [], []
@@ -289,7 +319,18 @@ def find_start(model, settings, shared_start=None, progress=None):
         if s.value is not None:
             shared[name] = s.value
     shared.update(shared_start or {})
-    data = [_star_data(model, k) for k in range(len(model.stars))]
+    given = {n for n in ("x0", "y0") if settings.shared_setting(n).value is not None}
+    centre = None if given or {"x0", "y0"} & set(shared_start or {}) else _far_centre(model)
+    frame = None
+    if centre is not None:
+        shared["x0"], shared["y0"] = centre
+        frame = tuple(shared[n] for n in ("x0", "y0", "vx0", "vy0", "vz0"))
+        res.notes.append(
+            f"the frame-relative positions lie far from the frame origin (their centre is "
+            f"{np.hypot(*centre):.4g} mas away, far beyond every star's positions): the start "
+            f"search was centred on ({centre[0]:.6g}, {centre[1]:.6g}) mas instead of "
+            "assuming the mass near the origin; check x0, y0")
+    data = [_star_data(model, k, shared=frame) for k in range(len(model.stars))]
 
     dists, dist_w, rows = _scale_from_stars(model, data, res)
     if settings.shared_setting("distance").value is not None:

@@ -119,6 +119,7 @@ class JointModel:
             if missing:
                 f, n = sorted(missing)[0]
                 raise SettingsError(f"no data row at {f} line {n} to exclude",
+                                    file=datasets.source or "command line",
                                     column="fit.exclude_rows")
         pos = pos[~pos["exclude"].to_numpy(bool)]
         vel = vel[~vel["exclude"].to_numpy(bool)] if len(vel) else vel
@@ -146,7 +147,8 @@ class JointModel:
         if self.vel is not None:
             self.vel.dataset = vel["dataset"].to_numpy(str)
             self.vel.line = vel["line"].to_numpy(int) if "line" in vel else np.zeros(len(vel), int)
-        self.datasets = (DatasetTerms(datasets, self.pos, self.vel, strict=stars_given is None)
+        self.datasets = (DatasetTerms(datasets, self.pos, self.vel, file=datasets.source,
+                                      strict=stars_given is None)
                          if datasets is not None and datasets.active else None)
         terms = self.datasets is not None
         self.layout = Layout(

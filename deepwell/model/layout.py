@@ -61,6 +61,21 @@ class Layout:
     def index(self, name):
         return self.names().index(name)
 
+    def carry(self, other, vec):
+        """This layout's internal vector with the values of ``vec`` in layout ``other``, by name.
+
+        For a model restricted to some stars (:meth:`JointModel.for_stars`),
+        whose data-set terms are only those of the sets those stars appear in:
+        its vector is not a slice of the joint one, so values are matched by
+        parameter name.  Every name of this layout must be in ``other``.
+        """
+        vec = np.asarray(vec, dtype=float)
+        where = {n: i for i, n in enumerate(other.names())}
+        missing = [n for n in self.names() if n not in where]
+        if missing:
+            raise KeyError(f"parameter {missing[0]!r} is not in the other layout")
+        return vec[..., [where[n] for n in self.names()]]
+
     def star_block(self, vec):
         """Per-star internal parameters as an array of shape (..., n_stars, 6)."""
         vec = np.asarray(vec, dtype=float)

@@ -8,7 +8,7 @@ quotes them; every threshold is defined here only.
 import numpy as np
 
 __all__ = ["POOR_COVERAGE", "POOR_PERIOD_ERROR", "GOOD_RPERI_ERROR", "POOR_REL_SIGMA",
-           "POOR_REDUCED_CHI2", "phase_coverage"]
+           "POOR_REDUCED_CHI2", "DETECTABLE_DCHI2", "phase_coverage"]
 
 #: An orbit whose data span less than this fraction of it (in mean anomaly) is
 #: a partial arc: linear errors may understate the real uncertainty (common practice).
@@ -21,6 +21,11 @@ GOOD_RPERI_ERROR = 0.20
 POOR_REL_SIGMA = 0.2
 #: A star fitting worse than this reduced chi-square is searched again (periods, start).
 POOR_REDUCED_CHI2 = 2.0
+#: An effect counts as detectable in a star's data when the expected chi-square
+#: difference between the models with and without it, after refitting the star's
+#: elements (deepwell.results.detectability), is at least this: about 3 sigma for
+#: one added parameter (chi-square with 1 dof, common practice).
+DETECTABLE_DCHI2 = 9.0
 
 
 def phase_coverage(model, vec, k):

@@ -13,6 +13,7 @@ from astropy.table import Table
 
 from deepwell.core.parameters import SHARED
 from deepwell.core.version import __version__
+from deepwell.model.quality import DETECTABLE_DCHI2
 from deepwell.results.effect_sizes import DETECTABLE_RULE
 from deepwell.results.enclosed import profile_table
 
@@ -145,6 +146,10 @@ def effects_table(result, sizes):
     t["period_fit"] = [result.value(f"{s}:period") for s in stars] * u.yr
     t["t_peri_fit"] = [result.value(f"{s}:t_peri") for s in stars] * u.yr
     for flag in ("redshift", "precession", "romer"):
+        t[f"dchi2_{flag}"] = [float(sizes[s][f"dchi2_{flag}"]) for s in stars]
+        t[f"dchi2_{flag}"].description = ("expected chi-square difference with and without "
+                                          "the effect, elements refitted (linearised)")
+    for flag in ("redshift", "precession", "romer"):
         t[f"detectable_{flag}"] = [bool(sizes[s][f"detectable_{flag}"]) for s in stars]
     t["osculating_epoch"].description = "epoch where the fitted elements hold (nan: Keplerian)"
     t.meta.update(_meta(result, "Sizes of the relativistic effects at the fitted orbits"))
@@ -172,7 +177,9 @@ def latex_effects(result, sizes):
         r"\caption{Relativistic effects at the fitted orbits: redshift excess at pericentre, "
         r"pericentre advance per orbit (angle and sky shift), peak-to-peak R\o mer delay, and "
         r"the star's smallest position and median velocity error. An effect counts as "
-        r"detectable when it exceeds the single-epoch error.}",
+        r"detectable when the expected $\Delta\chi^2$ between the models with and without it, "
+        r"at the star's epochs and errors with the fit's parameters refitted (linearised), "
+        r"is at least " + f"{DETECTABLE_DCHI2:g}" + r".}",
         r"\label{tab:deepwell-effects}", r"\begin{tabular}{lccccccccc}", r"\toprule",
         r"Star & $\Delta v_\mathrm{z}$ & $\Delta\omega$ & sky shift & R\o mer & "
         r"$\sigma_\mathrm{pos}$ & $\sigma_v$ & \multicolumn{3}{c}{detectable} \\",

@@ -54,6 +54,11 @@ def effects_block(result, sizes):
     }
 
 
+def _dchi2(value):
+    """An expected chi-square difference: two significant figures, whole numbers from 10."""
+    return "<0.1" if value < 0.1 else f"{value:.2g}" if value < 10 else f"{value:.0f}"
+
+
 def _yes(flag):
     return "yes" if flag else "no"
 
@@ -90,11 +95,13 @@ def md_effects(result, sizes, figures):
                 value = format_value_error(result.value(name), result.sigma(name), "text")
                 out.append(f"- The {kind} was fitted: {name} = {value} "
                            "(0: Newtonian, 1: general relativity).")
-    out += ["", "What each star's data can detect (an effect counts when it exceeds the "
-            "star's single-epoch error; many epochs together can reveal smaller ones):", "",
+    out += ["", f"What each star's data can detect: {DETECTABLE_RULE}. Δχ² columns: that "
+            "expected chi-square difference for the redshift, the precession and the Rømer "
+            "delay.", "",
             "| Star | integrated | redshift at pericentre (km/s) | median RV error (km/s) | "
             "precession (arcmin/orbit) | sky shift (mas/orbit) | smallest position error "
-            "(mas) | Rømer range (d) | detectable |", "|---|---|---|---|---|---|---|---|---|"]
+            "(mas) | Rømer range (d) | Δχ² z / prec. / Rømer | detectable |",
+            "|---|---|---|---|---|---|---|---|---|---|"]
     for s in m.stars:
         d = sizes[s]
         det = [k for k, key in (("redshift", "detectable_redshift"),
@@ -105,7 +112,8 @@ def md_effects(result, sizes, figures):
                    f"{'–' if not math.isfinite(vel) else f'{vel:.2g}'} | "
                    f"{d['precession_arcmin']:.3g} | {d['precession_mas']:.2g} | "
                    f"{d['min_position_error_mas']:.2g} | {d['romer_range_days']:.3g} | "
-                   f"{', '.join(det) or 'none'} |")
+                   f"{_dchi2(d['dchi2_redshift'])} / {_dchi2(d['dchi2_precession'])} / "
+                   f"{_dchi2(d['dchi2_romer'])} | {', '.join(det) or 'none'} |")
     missed = _unmodelled(m, sizes)
     if missed:
         out += ["", "**The data could detect effects this fit leaves out:** "

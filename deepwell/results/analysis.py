@@ -89,9 +89,10 @@ def analyse(result, extended_mass=(), external=None, jackknife=(), posterior=Non
     if extended_mass:
         say(f"extended-mass limits: one fit per scale radius ({len(extended_mass)})")
         limits = extended_mass_limits(result.observations, result.settings, extended_mass)
-    say("effect sizes and the enclosed-mass profile (one refit per star)")
+    say("effect sizes and their detectability (a linearised refit per star and effect)")
     sizes = star_effect_sizes(result)
-    profile = enclosed_mass_profile(result, external=external)
+    say("enclosed-mass profile (one refit per star)")
+    profile = enclosed_mass_profile(result, external=external, progress=say)
     jk = []
     for by in jackknife:
         say(f"jackknife: leave one {by} out")

@@ -20,15 +20,21 @@ from deepwell.model.kernels.relativity import (
     keplerian_emission_track,
     plummer_enclosed_mass,
 )
+from deepwell.model.quality import DETECTABLE_DCHI2
 from deepwell.tables.effects import effects_from_args
+
+from .detectability import effect_dchi2
 
 __all__ = ["star_effect_sizes", "pericentre_epochs", "extended_mass_limits",
            "truncated_gaussian_upper_limit"]
 
-DETECTABLE_RULE = ("an effect counts as detectable when its size exceeds the star's own "
-                   "single-epoch error: redshift excess and Romer RV shift against the median "
-                   "velocity error, precession sky shift and Romer sky shift against the "
-                   "smallest position error (many epochs can reveal smaller effects)")
+DETECTABLE_RULE = (
+    "an effect counts as detectable when the expected chi-square difference between the "
+    "models with and without it, at the star's actual epochs and fitted errors, after a "
+    "linearised refit of every fitted parameter except the effect strengths (the star's "
+    "elements, mass, distance, frame and data-set terms), is at least "
+    f"{DETECTABLE_DCHI2:g} (about 3 sigma); the effect sizes beside it are single-epoch "
+    "numbers for orientation only")
 
 
 def _star_elements(result, k):
@@ -119,7 +125,9 @@ def star_effect_sizes(result):
         ``precession_mas`` (per orbit, on the sky), ``romer_range_days``
         (peak to peak), ``romer_rv_kms`` and ``romer_sky_mas`` (largest change
         of RV and position over an orbit), ``min_position_error_mas``,
-        ``median_velocity_error_kms`` (nan without velocities), booleans
+        ``median_velocity_error_kms`` (nan without velocities), the expected
+        chi-square differences ``dchi2_redshift``, ``dchi2_precession``,
+        ``dchi2_romer`` (:func:`deepwell.results.detectability.effect_dchi2`), booleans
         ``detectable_redshift``, ``detectable_precession``, ``detectable_romer``
         and ``detectable`` (any; see :data:`DETECTABLE_RULE`), ``integrated``
         (1PN orbit in the fit) and, for integrated stars, the entries of
@@ -127,6 +135,7 @@ def star_effect_sizes(result):
         None and the period and pericentre are the fitted Keplerian ones.
     """
     model = result.model
+    fisher = effect_dchi2(result)
     out = {}
     for k, star in enumerate(model.stars):
         el = _star_elements(result, k)
@@ -148,9 +157,7 @@ def star_effect_sizes(result):
             "romer_sky_mas": sky_romer,
             "min_position_error_mas": min_pos,
             "median_velocity_error_kms": med_vel,
-            "detectable_redshift": bool(abs(sz.redshift_excess_kms) > med_vel),
-            "detectable_precession": bool(sz.precession_mas > min_pos),
-            "detectable_romer": bool(rv_romer > med_vel or sky_romer > min_pos),
+            **fisher[star],
             "integrated": bool(model.integrated[k]),
         }
         d["detectable"] = d["detectable_redshift"] or d["detectable_precession"] \

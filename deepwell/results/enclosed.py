@@ -21,6 +21,7 @@ Caveats stated in every output (:attr:`EnclosedMassProfile.notes`):
 """
 
 import math
+import time
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -47,6 +48,10 @@ __all__ = [
 
 
 # ----------------------------------------------------------------------------- per-star masses
+#: Seconds after which the per-star refits report each finished star.
+PROGRESS_AFTER = 3.0
+
+
 @dataclass(frozen=True)
 class StarMass:
     """Mass enclosed by one star's orbit, from a refit with its own central mass.
@@ -116,8 +121,9 @@ def _refit_star(result, k):
         model = model.replace(priors=[p for p in model.priors
                                       if p.star is not None or p.name != "mass"])
     ns = model.layout.n_shared
-    vec0 = np.concatenate([result.internal[:ns],
-                           result.internal[ns + 6 * k: ns + 6 * k + 6]])
+    # By name, not by slicing: the one-star model has only the data-set terms of the
+    # sets this star is in, so its shared block can be shorter than the joint one.
+    vec0 = model.layout.carry(jm.layout, result.internal)
     lo, hi, _ = bounds(model, result.settings)
     free = np.zeros(vec0.size, bool)
     free[0] = True          # mass
@@ -139,14 +145,18 @@ def _refit_star(result, k):
         converged=bool(sol.success), poorly_constrained=bool(reason), reason=reason)
 
 
-def star_masses(result):
+def star_masses(result, progress=None):
     """Mass enclosed by each star's orbit, each star refitted with its own mass.
 
     Parameters
     ----------
     result : deepwell.fit.result.FitResult
         A joint fit; its distance and frame (x0, y0, vx0, vy0, vz0) are held fixed,
-        its star elements are the starting point of each refit.
+        its star elements are the starting point of each refit (taken by
+        parameter name, :meth:`deepwell.model.layout.Layout.carry`).
+    progress : callable, optional
+        Called with a short text after each refit once the refits have taken
+        longer than :data:`PROGRESS_AFTER` seconds (quiet when they are fast).
 
     Returns
     -------
@@ -162,7 +172,16 @@ def star_masses(result):
     pericentre to apocentre.  The errors do not include the distance error, which
     scales every per-star mass by the same factor.
     """
-    return [_refit_star(result, k) for k in range(len(result.stars))]
+    say = progress or (lambda text: None)
+    t0 = time.monotonic()
+    out = []
+    n = len(result.stars)
+    for k, star in enumerate(result.stars):
+        t = time.monotonic()
+        out.append(_refit_star(result, k))
+        if time.monotonic() - t0 > PROGRESS_AFTER:
+            say(f"enclosed mass: {star} refitted ({k + 1}/{n}, {time.monotonic() - t:.1f} s)")
+    return out
 
 
 @dataclass(frozen=True)
@@ -349,13 +368,14 @@ class EnclosedMassProfile:
     notes: tuple = field(default_factory=tuple)
 
 
-def enclosed_mass_profile(result, external=None):
+def enclosed_mass_profile(result, external=None, progress=None):
     """Build the enclosed-mass profile of a joint fit.
 
     ``external``: optional :class:`~deepwell.tables.constraints.ExternalConstraints`
-    (enclosed masses from other tracers), carried to the table and figure.
+    (enclosed masses from other tracers), carried to the table and figure;
+    ``progress``: as in :func:`star_masses`.
     """
-    sm = tuple(star_masses(result))
+    sm = tuple(star_masses(result, progress))
     joint = result.value("mass")
     notes = [
         "Per-star mass errors are conditional on the joint distance and frame; the distance "

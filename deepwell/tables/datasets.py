@@ -64,6 +64,7 @@ class DatasetConfig:
     likelihood: str = "gaussian"
     outlier_width: float = 20.0
     exclude_rows: tuple = ()  # (file name, line)
+    source: str | None = field(default=None, compare=False)  # settings file, for messages
 
     @property
     def active(self):
@@ -156,7 +157,7 @@ def parse_datasets(datasets=None, fit=None, file=None):
                                 column=f"fit.exclude_rows[{i}]")
         rows.append((item["file"], item["line"]))
     kw["exclude_rows"] = tuple(rows)
-    cfg = DatasetConfig(**kw)
+    cfg = DatasetConfig(**kw, source=None if file is None else str(file))
     if (cfg.offsets or cfg.zero_points) and not cfg.reference:
         raise SettingsError("offsets or zero-points need a reference data set "
                             "(reference = \"NAME\")", file=file, column="datasets.reference")

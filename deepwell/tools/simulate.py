@@ -31,11 +31,17 @@ units; keys marked ``opt`` may be left out, any key not listed is an error::
         stars = ["br-01"]       # opt, default all stars
         coverage = 1.0          # opt, chance that a star is observed at an epoch
         max_separation = 60.0   # opt [mas] only stars this close to the mass
+    [systematics.NAME]  opt, instrument systematics of data set NAME (all its campaigns):
+        offset = [0.8, -0.5]    # opt [mas] (east, north) added to its frame positions
+        zero_point = 12.0       # opt [km/s] added to its velocities
+        error_factor = 1.5      # opt, true scatter / stated error (> 0; 1 = honest errors)
 
 Model: frame positions ra = x0 + vx0 (t - t_ref) + east(t), dec = y0 + vy0
 (t - t_ref) + north(t); positions relative to the mass are east(t), north(t);
 RV = vz0 + v_z(t) (+ f times the exact redshift excess); Gaussian noise with the
-stated errors; periods from Kepler's third law with the shared mass and
+stated errors (times the set's ``error_factor``), plus the set's offset or
+zero-point, which are the data-set terms of the fit (deepwell.model.datasets)
+with the same signs; periods from Kepler's third law with the shared mass and
 distance.  With the Romer delay the orbit is taken at the emission epoch.  With
 precession or a Plummer mass the orbit is integrated
 (deepwell.model.kernels.post_newtonian) from the
@@ -66,8 +72,8 @@ from deepwell.core.units import UNITS
 from deepwell.model.kernels.orbit import keplerian_track, period_from_a
 from deepwell.model.kernels.relativity import emission_epochs, pn_track, redshift_velocity
 
-__all__ = ["Shared", "Star", "Campaign", "SimEffects", "ScenarioDescription", "SimulatedData",
-           "load_description", "simulate", "truth_parameters", "write_scenario"]
+__all__ = ["Shared", "Star", "Campaign", "SimEffects", "Systematics", "ScenarioDescription",
+           "SimulatedData", "load_description", "simulate", "truth_parameters", "write_scenario"]
 
 POSITION_COLUMNS = ("star", "epoch", "ra", "dec", "ra_err", "dec_err", "dataset", "relative_to")
 VELOCITY_COLUMNS = ("star", "epoch", "vr", "vr_err", "dataset")
@@ -76,7 +82,8 @@ ELEMENT_KEYS = ("a", "e", "inc", "node", "peri_arg", "t_peri")
 #: Units of truth.json (astropy unit strings; epochs are Julian years in TT).
 TRUTH_UNITS = {k: UNITS[k] for k in ("mass", "distance", "x0", "y0", "vx0", "vy0", "vz0",
                                      "reference_epoch", "a", "e", "inc", "node", "peri_arg",
-                                     "t_peri", "period")} | {"pericentre": "AU"}
+                                     "t_peri", "period")} | {
+    "pericentre": "AU", "offset": UNITS["dx"], "zero_point": UNITS["dvz"], "error_factor": ""}
 _REQUIRED = object()
 _MIN_ERROR = {"positions": 1e-3, "velocities": 1e-2}  # 10x the rounding step
 
@@ -123,6 +130,28 @@ class SimEffects:
 
 
 @dataclass(frozen=True)
+class Systematics:
+    """Instrument systematics of one data set.
+
+    Attributes
+    ----------
+    offset : tuple of float
+        (east, north) offset in mas added to the set's frame-relative positions.
+    zero_point : float
+        km/s added to the set's radial velocities.
+    error_factor : float
+        True scatter divided by the stated error (1 for honest errors).
+    """
+
+    offset: tuple = (0.0, 0.0)
+    zero_point: float = 0.0
+    error_factor: float = 1.0
+
+
+NO_SYSTEMATICS = Systematics()
+
+
+@dataclass(frozen=True)
 class Campaign:
     """One observing campaign; see the module docstring for the meaning of each field."""
 
@@ -154,6 +183,11 @@ class ScenarioDescription:
     source: str = ""
     text: str = field(default="", repr=False, compare=False)
     effects: SimEffects = SimEffects()
+    systematics: dict = field(default_factory=dict)  # data set -> Systematics
+
+    def systematics_of(self, dataset):
+        """The :class:`Systematics` of ``dataset`` (none stated: honest, no offset)."""
+        return self.systematics.get(dataset, NO_SYSTEMATICS)
 
 
 @dataclass(frozen=True)
@@ -324,9 +358,41 @@ def load_description(path):
         label = (campaigns[-1].kind, campaigns[-1].relative_to)
         if kinds.setdefault(campaigns[-1].dataset, label) != label:
             c.fail("dataset", "a data set name may be reused only with the same kind and frame")
+    systematics = _read_systematics(top, campaigns, path, lines)
     top.finish()
     return ScenarioDescription(name, story, seed, ref, shared, tuple(stars), tuple(campaigns),
-                               str(path), text, effects)
+                               str(path), text, effects, systematics)
+
+
+def _read_systematics(top, campaigns, path, lines):
+    """The ``[systematics.NAME]`` tables, checked against the campaigns' data sets."""
+    raw = top.get("systematics", {})
+    if not isinstance(raw, dict):
+        top.fail("systematics", "must be a table of [systematics.NAME] tables")
+    out = {}
+    for dname, table in raw.items():
+        t = _Table(table, ("systematics", dname), path, lines)
+        camps = [c for c in campaigns if c.dataset == dname]
+        if not camps:
+            known = ", ".join(sorted({c.dataset for c in campaigns}))
+            t.fail("offset" if "offset" in t.table else next(iter(t.table), "offset"),
+                   f"data set {dname!r} is observed by no campaign (data sets: {known})")
+        kind = camps[0].kind
+        offset = (0.0, 0.0)
+        if "offset" in t.table:
+            if kind != "positions" or all(c.relative_to != "frame" for c in camps):
+                t.fail("offset", "applies to data sets with frame-relative positions only")
+            pair = t.get("offset")
+            if not isinstance(pair, list) or len(pair) != 2:
+                t.fail("offset", "must be a pair [east, north] in mas")
+            offset = tuple(t.number("offset", value=v) for v in pair)
+        if "zero_point" in t.table and kind != "velocities":
+            t.fail("zero_point", "applies to velocity data sets only")
+        out[dname] = Systematics(offset=offset, zero_point=t.number("zero_point", 0.0),
+                                 error_factor=t.number("error_factor", 1.0, lo=0.0,
+                                                       lo_open=True, hi=100.0))
+        t.finish()
+    return out
 
 
 def _read_effects(fx):
@@ -362,7 +428,10 @@ def _truth_record(description):
             stars[name]["osculating_epoch"] = el["t_peri"] + 0.5 * period
     return {"scenario": description.name, "story": description.story, "seed": description.seed,
             "reference_epoch": description.reference_epoch, "units": TRUTH_UNITS,
-            "shared": asdict(shared), "stars": stars, "effects": asdict(description.effects)}
+            "shared": asdict(shared), "stars": stars, "effects": asdict(description.effects),
+            "systematics": {d: {"offset": list(x.offset), "zero_point": x.zero_point,
+                                "error_factor": x.error_factor}
+                            for d, x in sorted(description.systematics.items())}}
 
 
 def _observe(description, camp, rng):
@@ -386,22 +455,25 @@ def _observe(description, camp, rng):
         keep &= np.hypot(track.east, track.north) <= camp.max_separation
     size, names = int(keep.sum()), np.array([s.name for s in stars])[idx][keep]
     t = t[keep]
+    sys = description.systematics_of(camp.dataset)
     if camp.kind == "velocities":
         err = np.round(rng.uniform(*camp.error, size), 3)
         fx = description.effects
         v_sq = track.v_east**2 + track.v_north**2 + track.v_z**2
         r_au = np.sqrt(track.east**2 + track.north**2 + track.z**2) * 1e-3 * sh.distance
         vr = redshift_velocity(track.v_z, v_sq, r_au, sh.mass, f=fx.redshift, vz0=sh.vz0)
-        vr = vr[keep] + err * rng.standard_normal(size)
+        vr = vr[keep] + sys.zero_point + err * (sys.error_factor * rng.standard_normal(size))
         return pd.DataFrame({"star": names, "epoch": t, "vr": np.round(vr, 3), "vr_err": err,
                              "dataset": camp.dataset})
     ra_err, dec_err = (np.round(rng.uniform(*camp.error, size), 4) for _ in range(2))
     z1, z2 = rng.standard_normal(size), rng.standard_normal(size)
+    z1, z2 = sys.error_factor * z1, sys.error_factor * z2
     ra = track.east[keep] + ra_err * z1
     dec = track.north[keep] + dec_err * (camp.corr * z1 + math.sqrt(1.0 - camp.corr**2) * z2)
     if camp.relative_to == "frame":
         dt = t - description.reference_epoch
         ra, dec = ra + sh.x0 + sh.vx0 * dt, dec + sh.y0 + sh.vy0 * dt
+        ra, dec = ra + sys.offset[0], dec + sys.offset[1]
     return pd.DataFrame({"star": names, "epoch": t, "ra": np.round(ra, 4), "dec": np.round(dec, 4),
                          "ra_err": ra_err, "dec_err": dec_err, "dataset": camp.dataset,
                          "relative_to": camp.relative_to, "corr": camp.corr})
