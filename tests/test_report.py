@@ -22,6 +22,8 @@ from deepwell.core.errors import OutputError
 from deepwell.fit.result import FitResult, physical_labels, physical_vector
 from deepwell.model.joint import JointModel
 from deepwell.model.layout import internal_star_values
+from deepwell.report.figures.marks import error_classes
+from deepwell.report.figures.orbits import star_figure
 from deepwell.report.outdir import MANIFEST, install_output, prepare_output, staged_output
 from deepwell.report.tables import format_value_error, star_numbers
 from deepwell.report.writer import compactness_choice, save_report, summary_dict, write_report
@@ -394,6 +396,31 @@ def test_full_report_with_figures(result, tmp_path):
     manifest = json.loads((final / MANIFEST).read_text())["files"]
     on_disk = {p.relative_to(final).as_posix() for p in final.rglob("*") if p.is_file()}
     assert set(manifest) == on_disk - {MANIFEST}
+
+
+def test_residual_panels_split_data_sets_whose_errors_differ_by_more_than_ten(result):
+    # Common practice (one residual panel per instrument class): data sets whose typical
+    # stated errors differ by more than a factor 10 never share an axis, or the precise
+    # ones vanish.  Hand-worked grouping first, then br-01 of the rich scenario (fringe
+    # 0.04-0.06 mas, imagers 0.5-1.0 mas).
+    assert error_classes(["a", "a", "b", "c"], [0.05, 0.06, 0.8, 0.5]) == [["a"], ["b", "c"]]
+    assert error_classes(["a", "b"], [1.0, 9.9]) == [["a", "b"]]
+    # the cut falls at the jump
+    assert error_classes(["a", "b", "c"], [1.0, 9.9, 10.1]) == [["a"], ["b", "c"]]
+    m = result.model
+    sel = m.pos.star == m.stars.index("br-01")
+    err = np.minimum(m.pos.ra_err, m.pos.dec_err)[sel]
+    median = {d: np.median(err[m.pos.dataset[sel] == d]) for d in set(m.pos.dataset[sel])}
+    assert max(median.values()) > 10 * min(median.values())  # the case the rule is for
+    fig = star_figure(result, "br-01")
+    panels = [ax for ax in fig.axes if ax.get_ylabel().endswith("res. (mas)")]
+    assert len(panels) == 4  # east and north for each of the two classes
+    drawn = set()
+    for ax in panels:
+        names = {c.get_label() for c in ax.containers}
+        drawn |= names
+        assert max(median[n] for n in names) <= 10 * min(median[n] for n in names)
+    assert drawn == set(median)
 
 
 def test_latex_tables_mark_fixed_values_and_order_stars_by_name(result, report_dir):
