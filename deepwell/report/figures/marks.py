@@ -104,14 +104,26 @@ def _outward(x, y, cx, cy):
     return d / norm if norm > 0 else np.array([0.0, 1.0])
 
 
-def draw_epoch_marks(ax, east, north, epochs, centre, colour="black", size=6.0):
-    """Dots and year labels at the sky positions of ``epochs`` (mas), labels outwards."""
+def draw_epoch_marks(ax, east, north, epochs, centre, later=None, colour="black", size=6.0):
+    """Dots and year labels at the sky positions of ``epochs`` (mas).
+
+    Each label sits off the track: along the track's normal (from the
+    positions ``later``, a little after each epoch), on the side away from
+    ``centre``; without ``later``, straight away from ``centre``.
+    """
     cx, cy = centre
     ax.plot(east, north, "o", color=colour, ms=2.2, zorder=5, label="_nolegend_")
-    for x, y, t in zip(east, north, epochs, strict=True):
+    for j, (x, y, t) in enumerate(zip(east, north, epochs, strict=True)):
         u = _outward(x, y, cx, cy)
-        ax.annotate(f"{t:g}", (x, y), xytext=(7.0 * u[0], 7.0 * u[1]),
-                    textcoords="offset points", ha="center", va="center", fontsize=size,
+        if later is not None:
+            step = np.array([-(later[0][j] - x), later[1][j] - y])
+            if np.hypot(*step) > 0:
+                normal = np.array([-step[1], step[0]]) / np.hypot(*step)
+                u = normal if normal @ u >= 0 else -normal
+        ha = "left" if u[0] > 0.35 else "right" if u[0] < -0.35 else "center"
+        va = "bottom" if u[1] > 0.35 else "top" if u[1] < -0.35 else "center"
+        ax.annotate(f"{t:g}", (x, y), xytext=(5.0 * u[0], 5.0 * u[1]),
+                    textcoords="offset points", ha=ha, va=va, fontsize=size,
                     color=colour, zorder=6)
 
 

@@ -229,9 +229,11 @@ def _sky_panel(ax, result, k, ra, dec, styles, draws=None):
     if t.size:
         marks = epoch_marks(t.min(), t.max(), e["period"])
         at = _track(e, marks)
+        later = _track(e, marks + 0.002 * e["period"])
         draw_epoch_marks(ax, at.east, at.north, marks,
                          (0.5 * (tr.east.max() + tr.east.min()),
-                          0.5 * (tr.north.max() + tr.north.min())))
+                          0.5 * (tr.north.max() + tr.north.min())),
+                         later=(later.east, later.north))
     for ds in unique_names(m.pos.dataset[sel]):
         colour, marker = styles[ds]
         s = sel & (m.pos.dataset == ds)
@@ -270,12 +272,15 @@ def velocity_classes(result, star):
     return error_classes(m.vel.dataset[sel], m.vel.vr_err[sel]) if sel.any() else []
 
 
-def _data_styles(result, k):
-    """(colour, marker) of every data set of star k: positions first, then velocities."""
+def _data_styles(result):
+    """(colour, marker) of every data set, the same in every star's figure.
+
+    Position data sets first, then velocity data sets, in order of first appearance.
+    """
     m = result.model
-    names = unique_names(m.pos.dataset[m.pos.star == k])
+    names = unique_names(m.pos.dataset)
     if m.vel is not None:
-        names = unique_names(names + unique_names(m.vel.dataset[m.vel.star == k]))
+        names = unique_names(names + unique_names(m.vel.dataset))
     return {ds: style_of(j) for j, ds in enumerate(names)}
 
 
@@ -303,9 +308,10 @@ def star_figure(result, star, draws=None):
     has_rv = vsel is not None and bool(vsel.any())
     pos_classes = position_classes(result, star)
     vel_classes = velocity_classes(result, star) if has_rv else []
-    styles = _data_styles(result, k)
+    styles = _data_styles(result)
     n_rows = 2 * max(len(pos_classes), 1) + (1 + len(vel_classes) if has_rv else 2)
-    n_entries = len(styles) + 3 + (draws is not None and has_rv)
+    n_entries = len(set(m.pos.dataset[sel]) | (set(m.vel.dataset[vsel]) if has_rv else set())) \
+        + 3 + (draws is not None and has_rv)
     legend_rows = int(np.ceil(n_entries / 4))
     height = max(5.6, 0.95 * n_rows + 1.0) + 0.16 * legend_rows
     bottom = (0.5 + 0.16 * legend_rows + 0.1) / height
