@@ -36,7 +36,7 @@ UNITS = {
     "median_velocity_error_kms": "km / s", "osculating_epoch": "yr", "integrated_period": "yr",
     "pericentre_emitted": "yr", "pericentre_observed": "yr",
     # planning
-    "ra_frame": "mas", "dec_frame": "mas", "sep": "mas", "start": "yr", "end": "yr",
+    "ra_frame": "mas", "dec_frame": "mas", "sep": "mas", "pa": "deg", "start": "yr", "end": "yr",
     "closest_epoch": "yr", "min_separation": "mas",
 }
 
