@@ -118,17 +118,16 @@ def predictions_figure(plan):
             for _, p in pas.iterrows():
                 if t[0] <= p["pericentre"] <= t[-1]:
                     ax.axvline(p["pericentre"], color="black", ls="--", lw=0.5,
-                               label="next pericentre" if first else None)
+                               label="next pericentre")
             ax.set_ylabel(label, fontsize=7)
         axes[k, 0].text(0.03, 0.9, star, transform=axes[k, 0].transAxes, ha="left", va="top",
                         fontsize=7.5, fontweight="bold",
                         bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.8))
-    handles, labels = axes[0, 0].get_legend_handles_labels()
-    for ax in axes[0, 1:]:  # a pericentre may be in the span of a later panel only
+    entries = {}
+    for ax in axes.ravel():  # a pericentre may fall in the span of a later star only
         for h, lab in zip(*ax.get_legend_handles_labels(), strict=True):
-            if lab not in labels:
-                handles.append(h)
-                labels.append(lab)
+            entries.setdefault(lab, h)
+    handles, labels = list(entries.values()), list(entries.keys())
     fig.legend(handles, labels, loc="upper center", ncols=len(labels),
                bbox_to_anchor=(0.5, 1.0 - 0.04 / height))
     for ax in axes[-1]:

@@ -26,6 +26,7 @@ import pandas as pd
 from deepwell.core.constants import C_AU_PER_YR
 from deepwell.core.errors import InputError
 from deepwell.core.text import plural
+from deepwell.model.kernels.orbit import position_angle_separation
 from deepwell.results.effect_sizes import pericentre_epochs
 from deepwell.tables.observations import EPOCH_RANGE
 
@@ -195,9 +196,10 @@ def position_angle(east, north):
     -------
     ndarray
         atan2(east, north) in degrees, in [0, 360) (the convention of visual
-        double stars and of ``astropy.coordinates.SkyCoord.position_angle``).
+        double stars and of ``astropy.coordinates.SkyCoord.position_angle``),
+        from :func:`deepwell.model.kernels.orbit.position_angle_separation`.
     """
-    return np.degrees(np.arctan2(east, north)) % 360.0
+    return np.degrees(position_angle_separation(east, north)[1])
 
 
 def _evaluate(syn, vectors, chunk=64):
