@@ -11,19 +11,23 @@ import json
 import math
 import re
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
 from astropy import constants as const
 from astropy import units as u
 from astropy.table import Table
+from matplotlib.collections import QuadMesh
 
 from deepwell.core.errors import OutputError
 from deepwell.fit.result import FitResult, physical_labels, physical_vector
+from deepwell.model.epochs import observations_at
 from deepwell.model.joint import JointModel
 from deepwell.model.layout import internal_star_values
 from deepwell.report.figures.marks import error_classes
-from deepwell.report.figures.orbits import star_figure
+from deepwell.report.figures.orbits import LEGEND_STARS, sky_figure, star_figure
+from deepwell.report.figures.style import RASTER_POINTS
 from deepwell.report.outdir import MANIFEST, install_output, prepare_output, staged_output
 from deepwell.report.tables import format_value_error, star_numbers
 from deepwell.report.writer import compactness_choice, save_report, summary_dict, write_report
@@ -421,6 +425,45 @@ def test_residual_panels_split_data_sets_whose_errors_differ_by_more_than_ten(re
         drawn |= names
         assert max(median[n] for n in names) <= 10 * min(median[n] for n in names)
     assert drawn == set(median)
+
+
+def _survey(n_stars, n_epochs, rng):
+    """An invented survey as a duck-typed result: positions on random Keplerian orbits."""
+    stars = [f"s-{k:03d}" for k in range(n_stars)]
+    obs = observations_at(stars, np.linspace(2000.0, 2025.0, n_epochs), [], 0.5, 10.0,
+                          relative_to="mass", dataset="survey")
+    model = JointModel(obs, reference_epoch=2000.0, stars=stars)
+    vec = [{"mass": 3e6, "distance": 7000.0}.get(n, 0.0) for n in model.layout.shared_names]
+    for _ in stars:
+        vec += list(internal_star_values(rng.uniform(20.0, 200.0), rng.uniform(0.0, 0.9),
+                                         rng.uniform(0, np.pi), rng.uniform(0, 2 * np.pi),
+                                         rng.uniform(0, 2 * np.pi), rng.uniform(2000, 2020)))
+    vec = np.array(vec)
+    pred = model.predict(vec)
+    obs.positions["ra"], obs.positions["dec"] = pred.ra, pred.dec
+    return SimpleNamespace(model=JointModel(obs, reference_epoch=2000.0, stars=stars),
+                           internal=vec)
+
+
+def test_survey_scale_sky_figure_draws_a_rasterised_density(result):
+    # Above RASTER_POINTS positions and LEGEND_STARS stars the sky figure counts the
+    # positions in cells (every position is counted once in the full panel: the sum of
+    # the cells equals the number of rows) and rasterises every layer of more than
+    # RASTER_POINTS points or vertices, so the PDF stays small (common practice).
+    survey = _survey(LEGEND_STARS + 12, RASTER_POINTS // (LEGEND_STARS + 12) + 20,
+                     np.random.default_rng(3))
+    fig = sky_figure(survey)
+    meshes = [c for c in fig.axes[0].collections if isinstance(c, QuadMesh)]
+    assert len(meshes) == 1 and meshes[0].get_rasterized()
+    assert np.nansum(meshes[0].get_array()) == survey.model.pos.n > RASTER_POINTS
+    assert all(ax.get_legend() is None for ax in fig.axes)
+    for ax in fig.axes:
+        for art in ax.lines:
+            assert art.get_rasterized() or len(art.get_xdata()) <= RASTER_POINTS
+    # a few stars keep their own colours, error bars and legend
+    small = sky_figure(result)
+    assert small.axes[-1].get_legend() is not None
+    assert not any(isinstance(c, QuadMesh) for ax in small.axes for c in ax.collections)
 
 
 def test_latex_tables_mark_fixed_values_and_order_stars_by_name(result, report_dir):

@@ -10,6 +10,7 @@ from deepwell.model.quality import POOR_COVERAGE
 
 from .effects import effect_figure_jobs
 from .orbits import (
+    DENSITY_CELLS,
     LEGEND_STARS,
     figure_name,
     position_classes,
@@ -85,19 +86,25 @@ def sky_caption(result):
     text = (f"{'Orbit' if n == 1 else 'Orbits'} of {plural(n, 'star')} around the central "
             "mass (black cross), on the sky. Frame-relative positions have the fitted "
             "reference-point drift subtracted, so every data set is shown relative to the "
-            "mass; lines are the fitted orbits, arrows show the direction of motion. East is "
-            "to the left, north up.")
+            "mass; lines are the fitted orbits"
+            + (", arrows show the direction of motion" if n <= LEGEND_STARS else "")
+            + ". East is to the left, north up.")
     zoom = sky_zoom(result)
     if zoom is not None:
         text += f" (a) All orbits; (b) the central ±{zoom:.0f} mas."
     if n <= LEGEND_STARS:
         text += (" Each star has its own pair of colour and marker shape (legend at right), "
                  "so stars stay apart in print and for colour-blind readers.")
+        if m.pos.n > RASTER_POINTS:
+            text += (f" The {m.pos.n} positions are drawn as small dots without error bars "
+                     "(rasterised in the PDF).")
     else:
-        text += f" With {n} stars the legend is left out."
-    if m.pos.n > RASTER_POINTS:
-        text += (f" The {m.pos.n} positions are drawn as small dots without error bars "
-                 "(rasterised in the PDF).")
+        text += (f" With {n} stars the orbits are thin grey lines without arrows and no "
+                 "legend names the stars; ")
+        text += (f"the {m.pos.n} positions are shown as their density (counts per cell of "
+                 f"{DENSITY_CELLS} x {DENSITY_CELLS} over each panel, logarithmic colour "
+                 "scale, rasterised in the PDF)." if m.pos.n > RASTER_POINTS else
+                 "the positions are black dots without error bars.")
     return text
 
 

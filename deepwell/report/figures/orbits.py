@@ -11,6 +11,8 @@ The sky axes follow the sky: east to the left, north up, equal scales.
 
 import matplotlib
 import numpy as np
+from matplotlib.collections import LineCollection
+from matplotlib.colors import LogNorm
 
 from deepwell.model.epochs import model_at_epochs, star_vector
 from deepwell.model.kernels.orbit import keplerian_track
@@ -36,7 +38,7 @@ from .style import (
 )
 
 __all__ = ["mass_relative_positions", "sky_figure", "sky_zoom", "star_figure", "figure_name",
-           "position_classes", "velocity_classes", "LEGEND_STARS"]
+           "position_classes", "velocity_classes", "LEGEND_STARS", "DENSITY_CELLS"]
 
 
 def figure_name(star):
@@ -175,6 +177,8 @@ def sky_figure(result, draws=None):
     ys = np.concatenate([dec, [0.0], *[tr.north for tr in tracks]])
     many_points = ra.size > RASTER_POINTS
     many_lines = len(m.stars) * n_orbit > 20 * RASTER_POINTS
+    crowded = len(m.stars) > LEGEND_STARS
+    norm = LogNorm(1.0, 2.0)  # one colour scale for the densities of every panel
     n_arrows = 3 if len(m.stars) <= 12 else 1
     with matplotlib.rc_context(STYLE):
         width = 6.2 * len(panels) + 1.0
@@ -182,32 +186,68 @@ def sky_figure(result, draws=None):
         for j, half in enumerate(panels):
             ax = fig.add_axes((0.9 / width + j * 6.2 / width, 0.1, 5.2 / width, 0.86))
             _sky_axes(ax)
-            for k, star in enumerate(m.stars):
-                colour, marker = style_of(k)
-                _draw_tracks(ax, result, star, draws, colour, rasterized=many_lines)
-                ax.plot(tracks[k].east, tracks[k].north, color=colour, lw=0.9, zorder=2,
-                        rasterized=many_lines)
-                draw_direction_arrows(ax, *_arrow_positions(elements[k], n_arrows), colour)
-                sel = m.pos.star == k
-                if many_points:
-                    ax.scatter(ra[sel], dec[sel], s=1.0, marker=marker, color=colour, lw=0,
-                               zorder=3, rasterized=True, label=star)
-                else:
-                    ax.errorbar(ra[sel], dec[sel], xerr=m.pos.ra_err[sel],
-                                yerr=m.pos.dec_err[sel], fmt=marker, color=colour, ms=4.2,
-                                mew=0.4, mec="black", elinewidth=0.5, zorder=3, label=star)
             if half is None:
                 _square_limits(ax, xs, ys)
             else:
                 _square_limits(ax, [-half, half], [-half, half], pad=0.0)
+            if crowded:
+                mesh = _crowded_sky(ax, tracks, ra, dec, many_points, many_lines, norm)
+            else:
+                for k, star in enumerate(m.stars):
+                    colour, marker = style_of(k)
+                    _draw_tracks(ax, result, star, draws, colour, rasterized=many_lines)
+                    ax.plot(tracks[k].east, tracks[k].north, color=colour, lw=0.9, zorder=2,
+                            rasterized=many_lines)
+                    draw_direction_arrows(ax, *_arrow_positions(elements[k], n_arrows), colour)
+                    sel = m.pos.star == k
+                    if many_points:
+                        ax.scatter(ra[sel], dec[sel], s=1.0, marker=marker, color=colour, lw=0,
+                                   zorder=3, rasterized=True, label=star)
+                    else:
+                        ax.errorbar(ra[sel], dec[sel], xerr=m.pos.ra_err[sel],
+                                    yerr=m.pos.dec_err[sel], fmt=marker, color=colour, ms=4.2,
+                                    mew=0.4, mec="black", elinewidth=0.5, zorder=3, label=star)
             if len(panels) > 1:
                 ax.text(0.02, 0.98, "(a)" if half is None else "(b)", transform=ax.transAxes,
                         ha="left", va="top", fontsize=9, fontweight="bold")
-        if len(m.stars) <= LEGEND_STARS:
+        if not crowded:
             ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0,
                       markerscale=1.3 if not many_points else 6.0,
                       ncols=1 if len(m.stars) <= 24 else 2)
+        elif mesh is not None:
+            bar = fig.colorbar(mesh, cax=fig.add_axes((1.0 - 0.75 / width, 0.1, 0.12 / width,
+                                                       0.86)))
+            bar.set_label("positions per cell (count)")
     return fig
+
+
+#: Cells per side of the density drawn for survey-scale sky figures.
+DENSITY_CELLS = 300
+
+
+def _crowded_sky(ax, tracks, ra, dec, many_points, many_lines, norm):
+    """Sky panel of more stars than a legend can name: grey orbits, positions as a density.
+
+    Above :data:`.style.RASTER_POINTS` positions they are counted in
+    :data:`DENSITY_CELLS` x :data:`DENSITY_CELLS` cells over the panel
+    (logarithmic colour scale ``norm``, shared by the panels and widened here to
+    the largest count, rasterised); fewer are drawn as small black dots.
+    Returns the density mesh (for the colour bar) or None.
+    """
+    lines = LineCollection([np.column_stack([tr.east, tr.north]) for tr in tracks],
+                           colors="0.45", linewidths=0.35, alpha=0.35, zorder=2,
+                           rasterized=many_lines)
+    ax.add_collection(lines)
+    if not many_points:
+        ax.plot(ra, dec, ".", color="black", ms=1.5, zorder=3)
+        return None
+    (x0, x1), (y0, y1) = sorted(ax.get_xlim()), sorted(ax.get_ylim())
+    counts, xe, ye = np.histogram2d(ra, dec, bins=DENSITY_CELLS, range=[[x0, x1], [y0, y1]])
+    counts = np.where(counts > 0, counts, np.nan)
+    if np.isfinite(counts).any():
+        norm.vmax = max(norm.vmax, float(np.nanmax(counts)))
+    return ax.pcolormesh(xe, ye, counts.T, cmap="viridis", norm=norm, zorder=3,
+                         rasterized=True)
 
 
 def _sky_panel(ax, result, k, ra, dec, styles, draws=None):
