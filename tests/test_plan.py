@@ -4,12 +4,16 @@ All scenarios here are invented for injection-recovery; no real object is behind
 """
 
 import argparse
+import dataclasses
 import hashlib
 import textwrap
 
 import numpy as np
 import pandas as pd
 import pytest
+from astropy import units as u
+from astropy.coordinates import SkyCoord
+from scipy.optimize import brentq
 
 from deepwell.cli.plan import add_plan_parser, run_plan
 from deepwell.core.errors import InputError, OutputError
@@ -23,6 +27,7 @@ from deepwell.tables.settings import Settings
 from deepwell.tools.plan import (
     PlanSettings,
     candidate_epochs,
+    default_errors,
     draw_vectors,
     fisher_forecast,
     information_gain,
@@ -30,6 +35,7 @@ from deepwell.tools.plan import (
     make_plan,
     next_passages,
     parse_months,
+    position_angle,
     predict_grid,
 )
 from deepwell.tools.simulate import write_scenario
@@ -443,7 +449,7 @@ def test_command_writes_plan_folder_and_refuses_to_overwrite(newtonian_fit, tmp_
     add_plan_parser(parser.add_subparsers())
     argv = ["plan", str(report), "--from", "2020.0", "--to", "2030.0", "--months", "4-8",
             "--astrometry-error", "0.5", "--velocity-error", "10", "--draws", "100",
-            "--resolution", "40"]
+            "--resolution", "40", "--stars", "p-1", "p-2"]
     args = parser.parse_args(argv)
     assert args.func(args) == 0
     plan_dir = report / "plan"
@@ -455,6 +461,7 @@ def test_command_writes_plan_folder_and_refuses_to_overwrite(newtonian_fit, tmp_
     from astropy.table import Table
     pred = Table.read(plan_dir / "predictions.ecsv")
     assert str(pred["sep_hi95"].unit) == "mas" and str(pred["vr"].unit) == "km / s"
+    assert str(pred["pa"].unit) == "deg" and set(pred["star"]) == {"p-1", "p-2"}
     with pytest.raises(OutputError):
         run_plan(parser.parse_args(argv))
     assert run_plan(parser.parse_args(argv + ["--replace", "--no-figures"])) == 0
@@ -486,6 +493,116 @@ def test_posterior_samples_are_used_and_checked(newtonian_fit, tmp_path):
     np.savez(path, internal_samples=samples, internal_names=np.array(["x"] * samples.shape[1]))
     with pytest.raises(InputError, match="do not match"):
         load_samples(path, res)
+
+
+# ------------------------------------------------------ RA, Dec, position angle
+def _thiele_innes_sky(a, e, inc, node, peri_arg, t_peri, period, t):
+    """East and north offsets from the classic visual-binary formulas (physics.md sect. 2).
+
+    Independent of deepwell's kernels: Kepler's equation solved by scipy's brentq,
+    angles in degrees, a in any angular unit.
+    """
+    i, om, w = np.radians(inc), np.radians(node), np.radians(peri_arg)
+    big_a = a * (np.cos(w) * np.cos(om) - np.sin(w) * np.sin(om) * np.cos(i))
+    big_b = a * (np.cos(w) * np.sin(om) + np.sin(w) * np.cos(om) * np.cos(i))
+    big_f = a * (-np.sin(w) * np.cos(om) - np.cos(w) * np.sin(om) * np.cos(i))
+    big_g = a * (-np.sin(w) * np.sin(om) + np.cos(w) * np.cos(om) * np.cos(i))
+    east, north = [], []
+    for tt in np.atleast_1d(t):
+        mean = np.mod(2 * np.pi * (tt - t_peri) / period, 2 * np.pi)
+        ecc = brentq(lambda x, m=mean: x - e * np.sin(x) - m, 0.0, 2 * np.pi)
+        x, y = np.cos(ecc) - e, np.sqrt(1 - e**2) * np.sin(ecc)
+        north.append(big_a * x + big_f * y)
+        east.append(big_b * x + big_g * y)
+    return np.array(east), np.array(north)
+
+
+def test_position_angle_matches_meeus_worked_example():
+    # Meeus, Astronomical Algorithms, 2nd ed. (1998), Example 57.a: at 1980.0 the pair is
+    # at rho = 0.411 arcsec, theta = 318.4 deg (full precision 0.411018", 318.4243 deg,
+    # physics.md sect. 2 [verified]); tolerances 1e-5 arcsec and 1e-3 deg.
+    east, north = _thiele_innes_sky(0.907, 0.2763, 59.025, 23.717, 219.907, 1934.008, 41.623,
+                                    1980.0)
+    assert position_angle(east, north)[0] == pytest.approx(318.4243, abs=1e-3)
+    assert np.hypot(east, north)[0] == pytest.approx(0.411018, abs=1e-5)
+    # quadrants: due east is 90 deg, due south 180, due west 270 (common practice)
+    np.testing.assert_allclose(position_angle([1.0, 0.0, -1.0, 0.0], [0.0, -1.0, 0.0, 1.0]),
+                               [90.0, 180.0, 270.0, 0.0])
+
+
+def test_predicted_offsets_and_position_angle_match_independent_computations(newtonian_fit):
+    """RA, Dec from the visual-binary formulas; PA and separation from astropy.
+
+    The fit is Newtonian without the Romer delay, so the best-fit offsets are the
+    Thiele-Innes positions of the fitted elements (tolerance 1e-6 mas).  astropy's
+    SkyCoord.position_angle and separation of the offset point from an invented
+    centre (RA 150 deg, Dec -35 deg) agree to 1e-6 deg and 1e-6 mas: for offsets
+    of a few hundred mas the tangent plane and the sphere differ by ~1e-12
+    relative, and double precision of coordinates in degrees limits astropy to
+    ~5e-8 mas.
+    """
+    res, _ = newtonian_fit
+    epochs = np.array([2021.0, 2024.5, 2031.2])
+    table, _ = predict_grid(res, epochs, draw_vectors(res, 50, np.random.default_rng(0)))
+    centre = SkyCoord(150.0 * u.deg, -35.0 * u.deg)
+    for star in res.stars:
+        rows = table[table["star"] == star]
+        el = [res.value(f"{star}:{q}") for q in ("a", "e", "inc", "node", "peri_arg",
+                                                 "t_peri", "period")]
+        east, north = _thiele_innes_sky(*el, epochs)
+        np.testing.assert_allclose(rows["ra"], east, atol=1e-6)
+        np.testing.assert_allclose(rows["dec"], north, atol=1e-6)
+        point = centre.spherical_offsets_by(rows["ra"].to_numpy() * u.mas,
+                                            rows["dec"].to_numpy() * u.mas)
+        pa = centre.position_angle(point).to_value(u.deg)
+        assert np.all(np.abs((rows["pa"] - pa + 180.0) % 360.0 - 180.0) < 1e-6)
+        np.testing.assert_allclose(rows["sep"], centre.separation(point).to_value(u.mas),
+                                   rtol=0, atol=1e-6)
+        assert np.all(rows["pa_lo95"] <= rows["pa"]) and np.all(rows["pa"] <= rows["pa_hi95"])
+
+
+def test_star_selection_and_fields_of_view_limit_what_is_observed(newtonian_fit):
+    res, _ = newtonian_fit
+    base = PlanSettings(2021.0, 2025.0, n_draws=40, epochs=(2021.5, 2023.5),
+                        astrometry_error=0.5, velocity_error=10.0)
+    chosen = ("p-3", "p-1")
+    plan = make_plan(res, dataclasses.replace(base, stars=chosen))
+    assert set(plan.predictions["star"]) == set(plan.passages["star"]) == set(chosen)
+    assert (plan.forecast["n_astrometry"].iloc[:-1] == 2).all()
+    full = make_plan(res, base)
+    # information only grows with more stars observed (normal equations, Press et al. 2007
+    # sect. 15.4): now >= after(2 stars) >= after(all 8 stars)
+    now, two, eight = (full.forecast["sigma_now_mass"], plan.forecast["sigma_after_mass"],
+                       full.forecast["sigma_after_mass"])
+    assert np.all(now >= two) and np.all(two > eight)
+    # a field of view smaller than every separation observes nothing: no gain at all
+    blind = make_plan(res, dataclasses.replace(base, astrometry_field=1e-3, velocity_field=1e-3))
+    assert (blind.forecast["n_astrometry"] == 0).all()
+    np.testing.assert_array_equal(blind.forecast["gain_mass"], 0.0)
+    # a radius between the separations: counted against the Thiele-Innes separations
+    radius = 300.0
+    field = make_plan(res, dataclasses.replace(base, astrometry_field=radius))
+    for t, n in zip((2021.5, 2023.5), field.forecast["n_astrometry"].iloc[:-1], strict=True):
+        inside = 0
+        for star in res.stars:
+            el = [res.value(f"{star}:{q}") for q in ("a", "e", "inc", "node", "peri_arg",
+                                                     "t_peri", "period")]
+            inside += int(np.hypot(*_thiele_innes_sky(*el, t))[0] <= radius)
+        assert 0 < n == inside < len(res.stars)
+    with pytest.raises(InputError, match="--stars"):
+        make_plan(res, dataclasses.replace(base, stars=("p-1", "nobody")))
+
+
+def test_default_errors_name_the_latest_data_set(newtonian_fit):
+    # The default error of a new epoch is that of the instrument in use (the data set
+    # observed last), to two significant figures (common practice), not a median over all.
+    res, _ = newtonian_fit
+    m = res.model
+    pos, vel, sources = default_errors(m)
+    imager = m.pos.dataset == "imager"
+    assert pos == float(f"{np.median(np.minimum(m.pos.ra_err, m.pos.dec_err)[imager]):.2g}")
+    assert vel == float(f"{np.median(m.vel.vr_err[m.vel.dataset == 'spectra']):.2g}")
+    assert "'imager'" in sources[0] and "'spectra'" in sources[1]
 
 
 def test_all_year_observability_gives_one_candidate_per_year():

@@ -235,14 +235,14 @@ def test_profile_table_round_trips_through_ecsv_with_units(rich_profile, tmp_pat
 
 
 def test_enclosed_mass_figure_writes_pdf_and_200_dpi_png(rich_profile, tmp_path):
-    # Matplotlib's definition of dpi: 6.4 x 5.6 inch at 200 dpi is 1280 x 1120 pixels.
+    # Matplotlib's definition of dpi: 6.4 x 5.0 inch at 200 dpi is 1280 x 1000 pixels.
     ext = constraints.read_external_constraints(_csv(tmp_path, "radius_pc,mass,mass_err\n"
                                                       "0.5,3.6e6,2e5\n1.2,4.5e6,4e5\n"))
     prof = pr.EnclosedMassProfile(**{**rich_profile.__dict__, "external": ext})
     files = plot_enclosed_mass(prof, tmp_path / "enclosed_mass")
     assert [f.suffix for f in files] == [".pdf", ".png"]
     assert files[0].read_bytes()[:5] == b"%PDF-"
-    assert matplotlib.image.imread(files[1]).shape[:2] == (1120, 1280)
+    assert matplotlib.image.imread(files[1]).shape[:2] == (1000, 1280)
 
 
 def test_enclosed_mass_figure_shows_the_measured_range_with_the_whole_range_beside(rich_profile):

@@ -11,17 +11,23 @@ import json
 import math
 import re
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
 from astropy import constants as const
 from astropy import units as u
 from astropy.table import Table
+from matplotlib.collections import QuadMesh
 
 from deepwell.core.errors import OutputError
 from deepwell.fit.result import FitResult, physical_labels, physical_vector
+from deepwell.model.epochs import observations_at
 from deepwell.model.joint import JointModel
 from deepwell.model.layout import internal_star_values
+from deepwell.report.figures.marks import error_classes
+from deepwell.report.figures.orbits import LEGEND_STARS, sky_figure, star_figure
+from deepwell.report.figures.style import RASTER_POINTS
 from deepwell.report.outdir import MANIFEST, install_output, prepare_output, staged_output
 from deepwell.report.tables import format_value_error, star_numbers
 from deepwell.report.writer import compactness_choice, save_report, summary_dict, write_report
@@ -394,6 +400,70 @@ def test_full_report_with_figures(result, tmp_path):
     manifest = json.loads((final / MANIFEST).read_text())["files"]
     on_disk = {p.relative_to(final).as_posix() for p in final.rglob("*") if p.is_file()}
     assert set(manifest) == on_disk - {MANIFEST}
+
+
+def test_residual_panels_split_data_sets_whose_errors_differ_by_more_than_ten(result):
+    # Common practice (one residual panel per instrument class): data sets whose typical
+    # stated errors differ by more than a factor 10 never share an axis, or the precise
+    # ones vanish.  Hand-worked grouping first, then br-01 of the rich scenario (fringe
+    # 0.04-0.06 mas, imagers 0.5-1.0 mas).
+    assert error_classes(["a", "a", "b", "c"], [0.05, 0.06, 0.8, 0.5]) == [["a"], ["b", "c"]]
+    assert error_classes(["a", "b"], [1.0, 9.9]) == [["a", "b"]]
+    # the cut falls at the jump
+    assert error_classes(["a", "b", "c"], [1.0, 9.9, 10.1]) == [["a"], ["b", "c"]]
+    m = result.model
+    sel = m.pos.star == m.stars.index("br-01")
+    err = np.minimum(m.pos.ra_err, m.pos.dec_err)[sel]
+    median = {d: np.median(err[m.pos.dataset[sel] == d]) for d in set(m.pos.dataset[sel])}
+    assert max(median.values()) > 10 * min(median.values())  # the case the rule is for
+    fig = star_figure(result, "br-01")
+    panels = [ax for ax in fig.axes if ax.get_ylabel().endswith("res. (mas)")]
+    assert len(panels) == 4  # east and north for each of the two classes
+    drawn = set()
+    for ax in panels:
+        names = {c.get_label() for c in ax.containers}
+        drawn |= names
+        assert max(median[n] for n in names) <= 10 * min(median[n] for n in names)
+    assert drawn == set(median)
+
+
+def _survey(n_stars, n_epochs, rng):
+    """An invented survey as a duck-typed result: positions on random Keplerian orbits."""
+    stars = [f"s-{k:03d}" for k in range(n_stars)]
+    obs = observations_at(stars, np.linspace(2000.0, 2025.0, n_epochs), [], 0.5, 10.0,
+                          relative_to="mass", dataset="survey")
+    model = JointModel(obs, reference_epoch=2000.0, stars=stars)
+    vec = [{"mass": 3e6, "distance": 7000.0}.get(n, 0.0) for n in model.layout.shared_names]
+    for _ in stars:
+        vec += list(internal_star_values(rng.uniform(20.0, 200.0), rng.uniform(0.0, 0.9),
+                                         rng.uniform(0, np.pi), rng.uniform(0, 2 * np.pi),
+                                         rng.uniform(0, 2 * np.pi), rng.uniform(2000, 2020)))
+    vec = np.array(vec)
+    pred = model.predict(vec)
+    obs.positions["ra"], obs.positions["dec"] = pred.ra, pred.dec
+    return SimpleNamespace(model=JointModel(obs, reference_epoch=2000.0, stars=stars),
+                           internal=vec)
+
+
+def test_survey_scale_sky_figure_draws_a_rasterised_density(result):
+    # Above RASTER_POINTS positions and LEGEND_STARS stars the sky figure counts the
+    # positions in cells (every position is counted once in the full panel: the sum of
+    # the cells equals the number of rows) and rasterises every layer of more than
+    # RASTER_POINTS points or vertices, so the PDF stays small (common practice).
+    survey = _survey(LEGEND_STARS + 12, RASTER_POINTS // (LEGEND_STARS + 12) + 20,
+                     np.random.default_rng(3))
+    fig = sky_figure(survey)
+    meshes = [c for c in fig.axes[0].collections if isinstance(c, QuadMesh)]
+    assert len(meshes) == 1 and meshes[0].get_rasterized()
+    assert np.nansum(meshes[0].get_array()) == survey.model.pos.n > RASTER_POINTS
+    assert all(ax.get_legend() is None for ax in fig.axes)
+    for ax in fig.axes:
+        for art in ax.lines:
+            assert art.get_rasterized() or len(art.get_xdata()) <= RASTER_POINTS
+    # a few stars keep their own colours, error bars and legend
+    small = sky_figure(result)
+    assert small.axes[-1].get_legend() is not None
+    assert not any(isinstance(c, QuadMesh) for ax in small.axes for c in ax.collections)
 
 
 def test_latex_tables_mark_fixed_values_and_order_stars_by_name(result, report_dir):

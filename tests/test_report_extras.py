@@ -11,6 +11,7 @@ import math
 from dataclasses import replace
 from types import SimpleNamespace
 
+import matplotlib.text
 import numpy as np
 import pytest
 from astropy.table import Table
@@ -18,6 +19,8 @@ from astropy.table import Table
 from deepwell.fit.joint import fit_joint
 from deepwell.fit.sampling import SamplerOptions, SamplingWarning, sample_posterior
 from deepwell.report.figures.effects import effect_figure_jobs, precession_curves, redshift_curves
+from deepwell.report.figures.enclosed import enclosed_figure
+from deepwell.report.figures.orbits import sky_figure, star_figure
 from deepwell.report.figures.posterior import (
     CONTOUR_LEVELS,
     corner_figure,
@@ -357,22 +360,64 @@ def test_star_tables_say_which_elements_are_osculating_and_give_the_observed_per
     assert all(f"{s}$^\\dagger$" in tex for s in integrated)
 
 
-def test_effect_figure_titles_say_held_or_fitted(obs, rel_fit, rel_sizes):
-    # A title must never call a held parameter "fitted" (issue of over-claiming labels);
-    # a fitted strength is quoted with its error and its own model curve is drawn.
+def test_effect_figure_captions_say_held_or_fitted(obs, rel_fit, rel_sizes):
+    # A caption (figures carry no title) must never call a held parameter "fitted" (issue of
+    # over-claiming labels); a fitted strength is quoted with its error and its own model
+    # curve is drawn.
     jobs = effect_figure_jobs(rel_fit, rel_sizes)
     assert jobs
-    for _, build, _ in jobs:
-        title = build()._suptitle.get_text()
-        assert "fitted" not in title and "held at 1" in title
+    for _, build, caption in jobs:
+        fig = build()
+        assert fig._suptitle is None
+        symbol = "f_SP" if "1PN" in caption else "f"
+        assert f"fitted {symbol} " not in caption and f"{symbol} held at 1" in caption
+        labels = [t.get_text() for ax in fig.axes if ax.get_legend()
+                  for t in ax.get_legend().get_texts()]
+        assert labels and not any("fitted" in t for t in labels)
     free_fit = fit_joint(obs, effects_from_args(Settings(), fit_f=True))
-    stem, build, _ = next(j for j in effect_figure_jobs(free_fit, star_effect_sizes(free_fit))
-                          if j[0].startswith("redshift"))
+    stem, build, caption = next(j for j in effect_figure_jobs(free_fit,
+                                                              star_effect_sizes(free_fit))
+                                if j[0].startswith("redshift"))
     fig = build()
     f, s = free_fit.value("f"), free_fit.sigma("f")
-    assert s > 0 and f"fitted f = {f:.3g} ± {s:.2g}" in fig._suptitle.get_text()
+    assert s > 0 and f"fitted f = {f:.3g} ± {s:.2g}" in caption
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert f"model, fitted f = {f:.3g}" in labels
+
+
+#: Spellings of the solar mass that must not appear in figure text (one spelling,
+#: mathtext $M_\odot$, is used; common practice in journals).
+OTHER_SOLAR_MASS = ("Msun", "solMass", "M_sun", "M☉", "Msol")
+
+
+def _texts(fig):
+    """Every string drawn on a figure (labels, legends, annotations, tick labels)."""
+    fig.canvas.draw()  # tick labels are made at drawing time
+    return [t.get_text() for t in fig.findobj(matplotlib.text.Text) if t.get_text()]
+
+
+def test_figures_have_no_titles_one_solar_mass_spelling_and_units_on_axes(
+        rel_fit, rel_sizes, posterior, newt_fit):
+    # Journals set captions outside the figure: no suptitle and no axes title anywhere;
+    # the solar mass is written one way ($M_\odot$); every axis label states its unit in
+    # parentheses (or "(dimensionless)") (common practice).
+    figures = [sky_figure(rel_fit), *(star_figure(rel_fit, s) for s in rel_fit.stars[:2]),
+               *(build() for _, build, _ in effect_figure_jobs(rel_fit, rel_sizes)),
+               corner_figure(posterior, ["mass", "distance", "vz0"]),
+               mass_distance_figure(posterior, ((newt_fit.value("mass"), 1e4),
+                                                (newt_fit.value("distance"), 10.0)))]
+    figures.append(enclosed_figure(analyse(rel_fit).profile))
+    mass_labels = 0
+    for fig in figures:
+        assert fig._suptitle is None
+        words = _texts(fig)
+        assert not [w for w in words if any(o in w for o in OTHER_SOLAR_MASS)], words
+        mass_labels += sum(r"$M_\odot$" in w for w in words)
+        for ax in fig.axes:
+            assert not any(ax.get_title(loc) for loc in ("left", "center", "right"))
+            for label in (ax.get_xlabel(), ax.get_ylabel()):
+                assert not label or ("(" in label and label.rstrip().endswith(")")), label
+    assert mass_labels >= 3  # corner, mass-distance, enclosed mass
 
 
 def test_assumptions_name_the_integrated_stars_without_a_phantom_rest(rel_fit, rel_report):

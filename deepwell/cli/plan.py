@@ -44,11 +44,21 @@ def add_plan_parser(subparsers):
                       help="candidate epochs per observing season (default 1)")
     cand.add_argument("--epochs-file", help="candidate epochs, one Julian year per line")
     cand.add_argument("--astrometry-error", type=float,
-                      help="stated position error of a new epoch, mas (default: data median)")
+                      help="stated position error of a new epoch, mas (default: the median "
+                           "stated error of the data set observed most recently)")
     cand.add_argument("--velocity-error", type=float,
-                      help="stated RV error of a new epoch, km/s (default: data median)")
+                      help="stated RV error of a new epoch, km/s (default: as for the "
+                           "astrometry, from the latest velocity data set)")
     cand.add_argument("--relative-to", choices=("frame", "mass"), default="frame",
                       help="new positions measured in the frame (default) or from the mass")
+    who = p.add_argument_group("what can be observed")
+    who.add_argument("--stars", nargs="+", metavar="STAR",
+                     help="plan only for these stars (default: every star of the fit)")
+    who.add_argument("--astrometry-field", type=float, metavar="MAS",
+                     help="field of view of the new astrometry, radius around the mass in "
+                          "mas: stars outside it at an epoch are not measured then")
+    who.add_argument("--velocity-field", type=float, metavar="MAS",
+                     help="the same for the new spectroscopy (radius in mas)")
     unc = p.add_argument_group("uncertainty and confusion")
     unc.add_argument("--draws", type=int, default=300, help="parameter draws for the bands")
     unc.add_argument("--seed", type=int, default=0, help="random seed of the draws")
@@ -99,7 +109,9 @@ def run_plan(args):
         per_season=args.per_season,
         epochs=_read_epochs(args.epochs_file) if args.epochs_file else None,
         astrometry_error=args.astrometry_error, velocity_error=args.velocity_error,
-        relative_to=args.relative_to, resolution=args.resolution)
+        relative_to=args.relative_to, resolution=args.resolution,
+        stars=tuple(args.stars) if args.stars else None,
+        astrometry_field=args.astrometry_field, velocity_field=args.velocity_field)
     check_plan_settings(settings)  # before the fit is rebuilt
     result = load_fit(args.report, scenario=args.scenario)
     sample_path = args.samples or (Path(args.report) / SAMPLES_FILE)

@@ -37,7 +37,7 @@ UNITS = {
     "pericentre_emitted": "yr", "pericentre_observed": "yr",
     "dchi2_romer": "", "dchi2_redshift": "", "dchi2_precession": "",
     # planning
-    "ra_frame": "mas", "dec_frame": "mas", "sep": "mas", "start": "yr", "end": "yr",
+    "ra_frame": "mas", "dec_frame": "mas", "sep": "mas", "pa": "deg", "start": "yr", "end": "yr",
     "closest_epoch": "yr", "min_separation": "mas",
 }
 

@@ -25,11 +25,18 @@ from astropy.table import Table
 
 from deepwell.core.text import plural
 from deepwell.core.units import unit_of
-from deepwell.report.figures.style import MARKERS, PALETTE, STYLE, new_figure, save_figure
+from deepwell.report.figures.style import (
+    COLOUR,
+    MARKERS,
+    PALETTE,
+    STYLE,
+    new_figure,
+    save_figure,
+)
 
 from .tables import md_text
 
-__all__ = ["write_plan", "predictions_figure", "gain_figure", "plan_markdown"]
+__all__ = ["write_plan", "predictions_figure", "gain_figure", "plan_markdown", "figure_captions"]
 
 def _table(frame, description):
     t = Table.from_pandas(frame)
@@ -41,32 +48,88 @@ def _table(frame, description):
     return t
 
 
+#: Colours of the prediction bands, the same for every star (legend entries match them).
+BAND_68 = dict(color=PALETTE[3], alpha=0.45, lw=0)
+BAND_95 = dict(color=PALETTE[1], alpha=0.35, lw=0)
+SEASON = dict(color=COLOUR["yellow"], alpha=0.3, lw=0, zorder=0)
+CANDIDATE = dict(color=COLOUR["vermillion"], marker="|", ms=7, mew=1.0, ls="none")
+
+#: Panels of the predictions figure: column, axis label (with units).
+PREDICTED = (("ra", r"$\Delta\alpha\cos\delta$ (mas)"), ("dec", r"$\Delta\delta$ (mas)"),
+             ("sep", "separation (mas)"), ("pa", "position angle (deg)"),
+             ("vr", "$v_r$ (km/s)"))
+
+
+def _candidates(plan):
+    fc = plan.forecast
+    return fc.loc[fc["candidate"] != "all", "epoch"].to_numpy(float)
+
+
+def _mark_seasons(ax, plan, cand, legend=False):
+    """Shade the observable seasons (if the months are known) and tick the candidate epochs."""
+    for j, (lo, hi) in enumerate(plan.seasons):
+        ax.axvspan(lo, hi, **SEASON, label="observable season" if legend and j == 0 else None)
+    ax.plot(cand, np.full(cand.size, 0.96), transform=ax.get_xaxis_transform(), **CANDIDATE,
+            label="candidate epoch" if legend else None, zorder=5)
+
+
+def _unwrapped(rows, q):
+    """Best fit and bands of column q; position angles unwrapped along the epochs."""
+    best = rows[q].to_numpy(float)
+    shift = np.zeros_like(best)
+    if q == "pa":  # continuous through north, centred in [0, 360) where it can be
+        shift = np.degrees(np.unwrap(np.radians(best))) - best
+        shift -= 360.0 * np.floor(np.median(best + shift) / 360.0)
+    return best + shift, {tag: rows[f"{q}_{tag}"].to_numpy(float) + shift
+                          for tag in ("lo95", "lo68", "hi68", "hi95")}
+
+
 def predictions_figure(plan):
-    """Separation from the mass and RV of every star against epoch, with bands."""
+    """RA and Dec offsets, separation, position angle and RV of every chosen star.
+
+    One row of panels per star, with the 68% and 95% bands of the draws (the
+    same colours for every star, as in the legend), the observable seasons
+    shaded when the months are known, the candidate epochs ticked at the top
+    of every panel and the next pericentre dashed.  No title: the caption in
+    ``plan.md`` says what is shown.
+    """
     pred = plan.predictions
     stars = list(dict.fromkeys(pred["star"]))
-    fig = new_figure((7.0, 0.4 + 1.5 * len(stars)))
-    axes = fig.subplots(len(stars), 2, squeeze=False, sharex=True)
-    fig.subplots_adjust(left=0.1, right=0.98, top=1 - 0.3 / (0.4 + 1.5 * len(stars)),
-                        bottom=0.35 / (0.4 + 1.5 * len(stars)) + 0.02, wspace=0.3, hspace=0.25)
+    cand = _candidates(plan)
+    height = 0.75 + 1.35 * len(stars)
+    fig = new_figure((11.0, height))
+    axes = fig.subplots(len(stars), len(PREDICTED), squeeze=False, sharex=True)
+    fig.subplots_adjust(left=0.06, right=0.99, top=1 - 0.42 / height,
+                        bottom=0.33 / height + 0.02, wspace=0.38, hspace=0.18)
     for k, star in enumerate(stars):
         rows = pred[pred["star"] == star]
-        colour = PALETTE[k % len(PALETTE)]
         t = rows["epoch"].to_numpy()
-        for ax, q, label in ((axes[k, 0], "sep", "sep. (mas)"), (axes[k, 1], "vr", "$v_r$ (km/s)")):
-            ax.fill_between(t, rows[f"{q}_lo95"], rows[f"{q}_hi95"], color=colour, alpha=0.2,
-                            lw=0, label="95%")
-            ax.fill_between(t, rows[f"{q}_lo68"], rows[f"{q}_hi68"], color=colour, alpha=0.45,
-                            lw=0, label="68%")
-            ax.plot(t, rows[q], color="black", lw=0.7, label="best fit")
-            ax.set_ylabel(label)
-        axes[k, 0].set_title(star, loc="left", fontsize=8)
         pas = plan.passages[plan.passages["star"] == star]
-        for ax in axes[k]:
+        for j, (q, label) in enumerate(PREDICTED):
+            ax = axes[k, j]
+            first = k == 0 and j == 0
+            _mark_seasons(ax, plan, cand, legend=first)
+            best, band = _unwrapped(rows, q)
+            ax.fill_between(t, band["lo95"], band["hi95"], **BAND_95,
+                            label="95% band" if first else None)
+            ax.fill_between(t, band["lo68"], band["hi68"], **BAND_68,
+                            label="68% band" if first else None)
+            ax.plot(t, best, color="black", lw=0.7, label="best fit" if first else None)
             for _, p in pas.iterrows():
                 if t[0] <= p["pericentre"] <= t[-1]:
-                    ax.axvline(p["pericentre"], color="black", ls="--", lw=0.5)
-    axes[0, 1].legend(loc="upper right")
+                    ax.axvline(p["pericentre"], color="black", ls="--", lw=0.5,
+                               label="next pericentre")
+            ax.set_ylabel(label, fontsize=7)
+        axes[k, 0].text(0.03, 0.9, star, transform=axes[k, 0].transAxes, ha="left", va="top",
+                        fontsize=7.5, fontweight="bold",
+                        bbox=dict(boxstyle="round,pad=0.15", fc="white", ec="none", alpha=0.8))
+    entries = {}
+    for ax in axes.ravel():  # a pericentre may fall in the span of a later star only
+        for h, lab in zip(*ax.get_legend_handles_labels(), strict=True):
+            entries.setdefault(lab, h)
+    handles, labels = list(entries.values()), list(entries.keys())
+    fig.legend(handles, labels, loc="upper center", ncols=len(labels),
+               bbox_to_anchor=(0.5, 1.0 - 0.04 / height))
     for ax in axes[-1]:
         ax.set_xlabel("epoch (Julian yr)")
     return fig
@@ -77,15 +140,34 @@ def gain_figure(plan):
     fc = plan.forecast[plan.forecast["candidate"] != "all"]
     targets = [c[len("gain_"):] for c in fc.columns if c.startswith("gain_")]
     fig = new_figure((6.5, 3.2))
-    ax = fig.add_axes((0.11, 0.15, 0.86, 0.78))
+    ax = fig.add_axes((0.11, 0.15, 0.86, 0.72))
+    _mark_seasons(ax, plan, _candidates(plan), legend=True)
     for k, q in enumerate(targets):
         ax.plot(fc["epoch"], 100.0 * fc[f"gain_{q}"], marker=MARKERS[k % len(MARKERS)],
                 color=PALETTE[k % len(PALETTE)], label=q)
     ax.set_xlabel("candidate epoch (Julian yr)")
     ax.set_ylabel("error shrinkage (%)")
-    ax.set_title("Forecast gain of one more epoch (all stars observed)", loc="left")
-    ax.legend(loc="upper left")
+    ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.01), ncols=6, borderaxespad=0.0)
     return fig
+
+
+def figure_captions(plan):
+    """Captions of the plan's figures (figures carry no titles): stem -> text."""
+    s = plan.settings
+    season = ("Yellow: the observable seasons (months " + ", ".join(map(str, s.months))
+              + ", taken as twelfths of the Julian year). " if s.months else
+              "No observable months were given, so no season is shaded. ")
+    ticks = "Short vertical ticks at the top: the candidate epochs."
+    return {
+        "predictions": "Predicted offsets from the mass (east, north), separation, position "
+                       "angle (east of north, unwrapped along the epochs) and radial velocity "
+                       "of each planned star; black: best fit; shaded: 68% (dark) and 95% "
+                       f"(light) bands of {s.n_draws} parameter draws ({plan.source}); dashed: "
+                       "the next pericentre. " + season + ticks,
+        "gain": "Forecast shrinkage of the error of each target after one more epoch "
+                "(Fisher information; each epoch alone, relative to the data in hand). "
+                + season + ticks,
+    }
 
 
 def _fmt(x, unit=""):
@@ -94,8 +176,8 @@ def _fmt(x, unit=""):
     return f"{x:.4g} {unit}".rstrip()
 
 
-def plan_markdown(plan, result):
-    """The text of ``plan.md``: key dates, ranking, confusion and caveats."""
+def plan_markdown(plan, result, figures=True):
+    """The text of ``plan.md``: key dates, ranking, confusion, caveats and figure captions."""
     s = plan.settings
     lines = [f"# Observing plan {s.start:g} to {s.end:g}", "",
              f"From the fit in this report ({plan.source}; "
@@ -105,6 +187,9 @@ def plan_markdown(plan, result):
              "and that new data have exactly the stated errors "
              f"({s.astrometry_error:g} mas per coordinate, {s.velocity_error:g} km/s). "
              "Predictions for poorly constrained stars are uncertain; the bands show how much.",
+             "", *[f"- {md_text(src)}." for src in s.error_sources],
+             *([f"- Planned stars: {', '.join(md_text(x) for x in s.stars)}."]
+               if s.stars else []),
              "", "## Next passages", "",
              "| star | next pericentre | ± | next apocentre | ± | period (yr) |",
              "|---|---|---|---|---|---|"]
@@ -157,11 +242,19 @@ def plan_markdown(plan, result):
                      f"({100 * every[f'gain_{q}']:.1f}% smaller).")
     lines += ["", "## Caveats and choices", ""]
     lines += [f"- {n}." if not n.endswith(".") else f"- {n}" for n in plan.notes]
+    observed = ("each chosen star" if s.astrometry_field is None and s.velocity_field is None
+                else "each chosen star inside the fields of view")
     lines += ["- The forecast is linear (Fisher information at the fitted solution); a star "
               "far from its fitted orbit, or a model that is wrong, makes it optimistic.",
-              "- Each candidate epoch observes every star once in position and RV.",
-              "", "## Files", "",
-              "`predictions.ecsv`, `passages.ecsv`, `approaches.ecsv`, `forecast.ecsv` "
+              f"- Each candidate epoch observes {observed} once in position and RV.",
+              ""]
+    if figures:
+        lines += ["## Figures", ""]
+    for stem, caption in figure_captions(plan).items() if figures else ():
+        lines += [f"![{stem}]({stem}.png)", "", f"*{md_text(caption.strip())}*", ""]
+    lines += ["## Files", "",
+              "`predictions.ecsv` (with `ra`, `dec`, `sep`, `pa` (deg east of north) and `vr` "
+              "and their bands), `passages.ecsv`, `approaches.ecsv`, `forecast.ecsv` "
               "(tables with units), `predictions.pdf/.png`, `gain.pdf/.png`."]
     return "\n".join(lines) + "\n"
 
@@ -191,6 +284,6 @@ def write_plan(plan, result, folder, figures=True, formats=("pdf", "png")):
             for stem, build in (("predictions", predictions_figure), ("gain", gain_figure)):
                 files += save_figure(build(plan), folder, stem, formats)
     path = folder / "plan.md"
-    path.write_text(plan_markdown(plan, result), encoding="utf-8")
+    path.write_text(plan_markdown(plan, result, figures), encoding="utf-8")
     files.append(path)
     return files

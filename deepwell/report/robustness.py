@@ -12,7 +12,7 @@ from astropy.table import Table
 
 from deepwell.core.jsonsafe import json_safe
 from deepwell.core.units import UNITS, unit_of
-from deepwell.report.figures.jackknife import plot_jackknife
+from deepwell.report.figures.jackknife import jackknife_caption, plot_jackknife
 
 from .tables import md_text
 
@@ -74,9 +74,7 @@ def write_robustness_figures(jackknife, folder):
     for jk in jackknife:
         stem = f"jackknife_{jk.by}"
         files = plot_jackknife(jk, Path(folder) / stem)
-        out[stem] = {"caption": f"Leave-one-{jk.by}-out refits: the shift of the mass and "
-                                "the distance when each is left out, against the "
-                                "statistical 1-sigma errors of the full fit.",
+        out[stem] = {"caption": jackknife_caption(jk),
                      "files": [Path(f) for f in files]}
     return out
 

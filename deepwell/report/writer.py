@@ -40,7 +40,7 @@ from deepwell.results.compactness import compactness, compactness_paragraph
 from deepwell.results.saved_fit import write_state
 
 from .analysis_tables import write_extra_tables
-from .figures.enclosed import plot_enclosed_mass
+from .figures.enclosed import enclosed_caption, plot_enclosed_mass
 from .figures.gallery import write_figures
 from .inference_data import INFERENCE_FILE, write_inference_data
 from .outdir import staged_output
@@ -441,14 +441,6 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
 
 
 # ---------------------------------------------------------------------- entry
-ENCLOSED_CAPTION = (
-    "Enclosed mass: per-star Keplerian masses (each star refitted with its own central "
-    "mass; horizontal bars run from pericentre to apocentre) against the joint point mass "
-    "(band: ±1σ). Per-star errors exclude the distance error; curves other than the point "
-    "mass are illustrative, not fitted. Lower panel: per-star mass over the joint mass "
-    "minus one.")
-
-
 def write_report(result, folder, analyses, figures=True, extra=None):
     """Write the full report of ``result`` and its analyses into ``folder``.
 
@@ -486,7 +478,7 @@ def write_report(result, folder, analyses, figures=True, extra=None):
     if figures:
         figs = write_figures(result, folder / "figures", posterior=analyses.posterior,
                              effect_sizes=analyses.effect_sizes)
-        figs["enclosed_mass"] = {"caption": ENCLOSED_CAPTION,
+        figs["enclosed_mass"] = {"caption": enclosed_caption(analyses.profile),
                                  "files": plot_enclosed_mass(analyses.profile,
                                                              folder / "figures" / "enclosed_mass")}
         figs.update(write_robustness_figures(analyses.jackknife, folder / "figures"))

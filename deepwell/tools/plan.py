@@ -13,19 +13,8 @@ Gaussian N(internal, internal_cov) over the fitted entries, or posterior
 samples when the report holds them (``posterior-samples.npz`` with arrays
 ``internal_samples`` (..., n_internal) and ``internal_names``).
 
-Forecast (Fisher information)
------------------------------
-The information of a candidate epoch is J^T J of the whitened residuals of
-a synthetic model observing every star at that epoch with the stated errors
-(central differences at the fitted vector).  It is added to the information
-of the data in hand, I_0 = C^-1 (the fit's covariance, or the samples'
-covariance).  When f or f_sp is in the model but was held fixed in the fit,
-the forecast frees it: I_0 is then J^T J of the fit's own residuals (data
-and priors) at the solution over the fitted entries plus the freed ones, so
-"now" means "what the data in hand say about f with f free".  A strength not
-in the model at all (its effect switched off) is reported as such and
-skipped.  The forecast assumes the model is right and the stated errors are
-the true ones; it is linear around the fitted solution.
+The forecast of candidate epochs is in :mod:`deepwell.tools.forecast`, the
+observing seasons in :mod:`deepwell.tools.seasons`.
 """
 
 import dataclasses
@@ -36,18 +25,26 @@ import pandas as pd
 
 from deepwell.core.constants import C_AU_PER_YR
 from deepwell.core.errors import InputError
-from deepwell.fit.jacobian import default_steps, numerical_jacobian
-from deepwell.model.epochs import observations_at
+from deepwell.core.text import plural
+from deepwell.model.kernels.orbit import position_angle_separation
 from deepwell.results.effect_sizes import pericentre_epochs
 from deepwell.tables.observations import EPOCH_RANGE
+
+from .forecast import (
+    TARGETS,
+    fisher_forecast,
+    information_gain,
+    mass_relative,
+    synthetic_model,
+)
+from .seasons import candidate_epochs, parse_months, season_intervals
 
 __all__ = ["PlanSettings", "Plan", "make_plan", "synthetic_model", "draw_vectors",
            "predict_grid", "position_ellipse", "next_passages", "information_gain",
            "load_samples", "close_approaches", "candidate_epochs", "fisher_forecast",
-           "parse_months", "check_plan_settings", "TARGETS", "SAMPLES_FILE", "LIMITS"]
+           "parse_months", "check_plan_settings", "position_angle", "season_intervals",
+           "default_errors", "TARGETS", "SAMPLES_FILE", "LIMITS", "QUANTITIES"]
 
-#: Quantities whose forecast errors are ranked.
-TARGETS = ("mass", "distance", "f", "f_sp")
 #: Optional file of posterior samples in a report folder (see module docstring).
 SAMPLES_FILE = "posterior-samples.npz"
 #: Bounds of what can be planned (refused beyond them, naming the option): epochs in
@@ -88,6 +85,16 @@ class PlanSettings:
         How new positions are measured.
     resolution : float
         Separation (mas) below which two stars' astrometry is confused.
+    stars : tuple of str or None
+        Stars to plan for (predictions, passages and the forecast); None: all.
+        Close approaches are checked against every star of the fit.
+    astrometry_field, velocity_field : float or None
+        Field of view (mas, radius around the mass) of the new astrometry and
+        of the new spectroscopy: at a candidate epoch a star is observed by an
+        instrument only when its best-fit separation from the mass is inside
+        that radius.  None: every chosen star is observed.
+    error_sources : tuple of str
+        Where the errors used come from, in words (filled in by :func:`make_plan`).
     """
 
     start: float
@@ -102,6 +109,10 @@ class PlanSettings:
     velocity_error: float | None = None
     relative_to: str = "frame"
     resolution: float = 60.0
+    stars: tuple | None = None
+    astrometry_field: float | None = None
+    velocity_field: float | None = None
+    error_sources: tuple = ()
 
 
 @dataclass(frozen=True)
@@ -114,25 +125,32 @@ class Plan:
         With the errors actually used filled in.
     predictions : DataFrame
         Per star and grid epoch: ``ra``, ``dec`` (east, north of the mass),
-        ``ra_frame``, ``dec_frame`` (in the astrometric frame), ``sep`` (mas)
+        ``ra_frame``, ``dec_frame`` (in the astrometric frame), ``sep`` (mas),
+        ``pa`` (position angle from the mass, deg east of north, in [0, 360))
         and ``vr`` (km/s), each as best fit and ``_lo95``, ``_lo68``,
-        ``_hi68``, ``_hi95``; ``pos95_major``, ``pos95_minor`` (mas) and
-        ``pos95_pa`` (deg, east of north): the 95% error ellipse of the position.
+        ``_hi68``, ``_hi95`` (the ``pa`` bands run continuously through north,
+        so ``pa_lo*`` may be below 0 and ``pa_hi*`` above 360);
+        ``pos95_major``, ``pos95_minor`` (mas) and ``pos95_pa`` (deg, east of
+        north): the 95% error ellipse of the position.
     passages : DataFrame
         Per star: next pericentre and apocentre epoch after ``start`` and
         their sigmas (yr), period (yr), ``integrated``.
     approaches : DataFrame
         Intervals in which a pair of stars may be closer than the resolution.
     forecast : DataFrame
-        Per candidate epoch (and a row ``all`` for all together): for each
-        target ``sigma_now_<q>``, ``sigma_after_<q>``, ``gain_<q>`` (fractional
-        shrinkage of the error) and ``rank_<q>``.
+        Per candidate epoch (and a row ``all`` for all together): the numbers
+        of stars observed in position and velocity (``n_astrometry``,
+        ``n_velocity``), for each target ``sigma_now_<q>``, ``sigma_after_<q>``,
+        ``gain_<q>`` (fractional shrinkage of the error) and ``rank_<q>``.
     notes : tuple of str
         Caveats and choices, in plain words, for the written plan.
     source : str
         ``"covariance"`` or ``"posterior samples"``.
     poorly_constrained : tuple of str
         Stars whose 95% separation band is wider than half their separation.
+    seasons : tuple of (float, float)
+        Observable intervals in the span (Julian yr, :func:`season_intervals`);
+        empty when no observable months were given.
     """
 
     settings: PlanSettings
@@ -143,22 +161,7 @@ class Plan:
     notes: tuple = field(default=())
     source: str = "covariance"
     poorly_constrained: tuple = ()
-
-
-# ------------------------------------------------------------------ synthetic data
-def synthetic_model(model, epochs, pos_err=1.0, vel_err=10.0, stars=None,
-                    relative_to="frame"):
-    """A model like ``model`` observing ``stars`` at every one of ``epochs``.
-
-    Every star gets one position row (stated errors ``pos_err`` mas in each
-    coordinate, no correlation) and one velocity row (``vel_err`` km/s) per
-    epoch; the measured values are zeros (only predictions and Jacobians of
-    this model are meaningful).  Effects, integrated flags and the reference
-    radius are those of ``model``; it has no priors.
-    """
-    obs = observations_at(model.stars if stars is None else stars, epochs, epochs, pos_err,
-                          vel_err, relative_to, dataset="planned")
-    return model.replace(observations=obs, priors=(), datasets=None)
+    seasons: tuple = ()
 
 
 def draw_vectors(result, n_draws, rng, samples=None):
@@ -181,27 +184,38 @@ def draw_vectors(result, n_draws, rng, samples=None):
     return out
 
 
-def _mass_relative(model, vec, pred):
-    """Frame terms removed from predicted frame positions."""
-    sh = model.layout.shared
-    dt = model.pos.t - model.reference_epoch
-    x = (sh(vec, "x0")[..., None] + sh(vec, "vx0")[..., None] * dt) * model.pos.frame
-    y = (sh(vec, "y0")[..., None] + sh(vec, "vy0")[..., None] * dt) * model.pos.frame
-    return pred.ra - x, pred.dec - y
+def position_angle(east, north):
+    """Position angle (deg) of an offset from the mass, from north through east.
+
+    Parameters
+    ----------
+    east, north : array_like
+        Offsets (any one angular unit): east = Delta alpha cos delta, north = Delta delta.
+
+    Returns
+    -------
+    ndarray
+        atan2(east, north) in degrees, in [0, 360) (the convention of visual
+        double stars and of ``astropy.coordinates.SkyCoord.position_angle``),
+        from :func:`deepwell.model.kernels.orbit.position_angle_separation`.
+    """
+    return np.degrees(position_angle_separation(east, north)[1])
 
 
 def _evaluate(syn, vectors, chunk=64):
-    """ra, dec (mass), ra_frame, dec_frame, sep, vr for stacked vectors, in chunks."""
+    """ra, dec (mass), ra_frame, dec_frame, sep, pa, vr for stacked vectors, in chunks."""
     parts = []
     for i in range(0, len(vectors), chunk):
         v = vectors[i:i + chunk]
         p = syn.predict(v)
-        ra, dec = _mass_relative(syn, v, p)
-        parts.append(np.stack([ra, dec, p.ra, p.dec, np.hypot(ra, dec), p.vr]))
-    return np.concatenate(parts, axis=1)  # (6, n_vec, n_rows)
+        ra, dec = mass_relative(syn, v, p)
+        parts.append(np.stack([ra, dec, p.ra, p.dec, np.hypot(ra, dec),
+                               position_angle(ra, dec), p.vr]))
+    return np.concatenate(parts, axis=1)  # (7, n_vec, n_rows)
 
 
-QUANTITIES = ("ra", "dec", "ra_frame", "dec_frame", "sep", "vr")
+QUANTITIES = ("ra", "dec", "ra_frame", "dec_frame", "sep", "pa", "vr")
+_PA = QUANTITIES.index("pa")
 
 
 def predict_grid(result, epochs, draws):
@@ -211,13 +225,22 @@ def predict_grid(result, epochs, draws):
     -------
     table : DataFrame
         See :attr:`Plan.predictions`.
-    values : ndarray, shape (6, n_draws, n_stars, n_epochs)
+    values : ndarray, shape (7, n_draws, n_stars, n_epochs)
         The draws of :data:`QUANTITIES`, for close approaches and figures.
+
+    Notes
+    -----
+    The position-angle bands are percentiles of the draws' angles taken
+    relative to the best fit in (-180, 180] deg, so a band through north does
+    not wrap to the full circle.
     """
     syn = synthetic_model(result.model, epochs, relative_to="frame")
     best = _evaluate(syn, result.internal[None, :])[:, 0]
     vals = _evaluate(syn, draws)
-    q = np.percentile(vals, BAND_PERCENTILES, axis=1)  # (5, 6, n_rows)
+    rel = vals.copy()
+    rel[_PA] = (vals[_PA] - best[_PA] + 180.0) % 360.0 - 180.0
+    q = np.percentile(rel, BAND_PERCENTILES, axis=1)  # (5, 7, n_rows)
+    q[:, _PA] += best[_PA]
     cols = {"star": np.asarray(syn.stars)[syn.pos.star], "epoch": syn.pos.t}
     for j, name in enumerate(QUANTITIES):
         cols[name] = best[j]
@@ -226,7 +249,7 @@ def predict_grid(result, epochs, draws):
     cols.update(zip(("pos95_major", "pos95_minor", "pos95_pa"),
                     position_ellipse(vals[0], vals[1]), strict=True))
     n_st, n_ep = len(syn.stars), len(epochs)
-    return pd.DataFrame(cols), vals.reshape(6, len(draws), n_st, n_ep)
+    return pd.DataFrame(cols), vals.reshape(len(QUANTITIES), len(draws), n_st, n_ep)
 
 
 def position_ellipse(ra, dec, level=0.95):
@@ -344,197 +367,43 @@ def close_approaches(stars, epochs, ra, dec, ra_best, dec_best, resolution):
     return pd.DataFrame(rows, columns=cols)
 
 
-# ---------------------------------------------------------- candidate epochs
-def parse_months(text):
-    """Observable months from ``"3-9"``, ``"11-2"`` (wrapping) or ``"3,4,5"``."""
-    out = []
-    bad = InputError(f"months must be 1 to 12, written like 3-9, 11-2 or 3,4,5; got {text!r}",
-                     column="--months")
-    try:
-        for part in str(text).split(","):
-            ends = [int(x) for x in part.split("-")]
-            if len(ends) > 2 or any(not 1 <= m <= 12 for m in ends):
-                raise bad
-            a, b = ends[0], ends[-1]
-            out += [(a - 1 + i) % 12 + 1 for i in range((b - a) % 12 + 1)]
-    except ValueError:
-        raise bad from None
-    return tuple(dict.fromkeys(out))
-
-
-def _observable(t, months):
-    """Whether Julian epochs fall in the observable months (month = twelfth of a year)."""
-    if months is None:
-        return np.ones(np.shape(t), bool)
-    month = np.floor(np.mod(t, 1.0) * 12.0).astype(int) + 1
-    return np.isin(month, months)
-
-
-def candidate_epochs(start, end, months=None, per_season=1, epochs=None):
-    """Candidate epochs: user's list filtered by season, or ``per_season`` per season.
-
-    A season is a run of consecutive observable months (wrapping over the new
-    year); its ``per_season`` epochs sit at the centres of equal parts of it.
-    Months are twelfths of the Julian year (off by at most a day from the
-    calendar).  Epochs outside [start, end] are dropped.
-    """
-    if epochs is not None:
-        t = np.sort(np.asarray(epochs, float))
-        return t[(t >= start) & (t <= end) & _observable(t, months)]
-    fine = np.arange(np.floor(start) - 1.0, np.ceil(end) + 1.0, 1.0 / 12.0) + 1.0 / 24.0
-    ok = _observable(fine, months).astype(int)
-    if ok.all():  # observable all year: every year is one season
-        ok[np.round((fine - 1.0 / 24.0) * 12).astype(int) % 12 == 0] = 0
-        ok = _observable(fine, months).astype(int) * (ok > 0)
-    edges = np.flatnonzero(np.diff(np.concatenate([[0], ok, [0]])))
-    out = []
-    for a, b in zip(edges[0::2], edges[1::2], strict=True):
-        lo, hi = fine[a] - 1.0 / 24.0, fine[b - 1] + 1.0 / 24.0
-        out += list(lo + (np.arange(per_season) + 0.5) * (hi - lo) / per_season)
-    t = np.round(np.array(out), 4)
-    return t[(t >= start) & (t <= end)]
-
-
-# ------------------------------------------------------------------ forecast
-def _covariance_from_information(info):
-    """Inverse of an information matrix after equilibration; inf where it is null."""
-    d = np.sqrt(np.clip(np.diag(info), 0.0, None))
-    ok = d > 0
-    cov = np.full(info.shape, np.nan)
-    sub = info[np.ix_(ok, ok)] / np.outer(d[ok], d[ok])
-    cov[np.ix_(ok, ok)] = np.linalg.pinv(sub, rcond=1e-13, hermitian=True) / np.outer(d[ok], d[ok])
-    cov[~ok, ~ok] = np.inf
-    return cov
-
-
-def information_gain(info0, jac, row_sets):
-    """Standard errors now and after adding each set of Jacobian rows.
-
-    Parameters
-    ----------
-    info0 : ndarray, shape (n, n)
-        Information matrix of the data in hand (inverse covariance).
-    jac : ndarray, shape (n_rows, n)
-        Jacobian of the whitened residuals of the candidate data.
-    row_sets : sequence of boolean masks over the rows of ``jac``
-
-    Returns
-    -------
-    sigma_now : ndarray, shape (n,)
-    sigma_after : ndarray, shape (len(row_sets), n)
-
-    Notes
-    -----
-    Gauss-Markov: Cov_after = (I_0 + J_s^T J_s)^-1 for the rows s added
-    (e.g. Press et al. 2007, Numerical Recipes, sect. 15.4, the normal
-    equations of linear least squares).
-    """
-    now = np.sqrt(np.diag(_covariance_from_information(info0)))
-    after = np.array([np.sqrt(np.diag(_covariance_from_information(
-        info0 + jac[sel].T @ jac[sel]))) for sel in row_sets])
-    return now, after
-
-
-def _current_information(result, free, samples, notes):
-    model = result.model
-    if np.array_equal(free, result.free):
-        if samples is not None:
-            cov = np.cov(np.asarray(samples).reshape(-1, free.size)[:, free], rowvar=False)
-        else:
-            cov = result.internal_cov[np.ix_(free, free)]
-        return np.linalg.pinv(0.5 * (cov + cov.T), hermitian=True)
-    notes.append("f and/or f_sp were held fixed in the fit; the forecast frees them: the "
-                 "information in hand is J^T J of the fit's residuals (data and priors) at "
-                 "the solution with them free")
-    jac = numerical_jacobian(model.residuals, result.internal, free,
-                             _steps(model, result, free), model.layout, model.residual_owner())
-    return jac.T @ jac
-
-
-def _steps(model, result, free):
-    steps = default_steps(model, result.internal)
-    sig = np.sqrt(np.clip(np.diag(result.internal_cov), 0.0, None))
-    return np.where(free & (sig > 0), 1e-3 * sig, steps)
-
-
-def fisher_forecast(result, epochs, pos_err, vel_err, relative_to="frame", samples=None):
-    """Errors of the targets now and after observing each candidate epoch.
-
-    Parameters
-    ----------
-    result : FitResult
-    epochs : array_like
-        Candidate epochs (Julian yr); every star is observed at each.
-    pos_err, vel_err : float
-        Stated errors of the new positions (mas, per coordinate) and radial
-        velocities (km/s).
-    relative_to : {"frame", "mass"}
-    samples : ndarray, optional
-        Posterior samples of the internal vector (for the information in hand).
-
-    Returns
-    -------
-    table : DataFrame
-        See :attr:`Plan.forecast`; the last row (``candidate = "all"``) has
-        every candidate observed.
-    notes : list of str
-
-    Notes
-    -----
-    I_after = I_0 + J_e^T J_e with J_e the Jacobian of the whitened residuals
-    of epoch e's synthetic rows over the free internal parameters; the
-    forecast sigma of a target is sqrt of its diagonal entry of I_after^-1.
-    The targets are entries of the internal vector, so no transformation is
-    needed.  Gain = 1 - sigma_after / sigma_now.
-    """
-    model = result.model
-    notes = []
-    names = model.layout.names()
-    free = np.asarray(result.free, bool).copy()
-    targets = []
-    for q in TARGETS:
-        if q not in names:
-            notes.append(f"{q} is not in the model (its effect is switched off): no forecast")
-            continue
-        free[names.index(q)] = True
-        targets.append(q)
-    info0 = _current_information(result, free, samples, notes)
-    t = np.asarray(epochs, float)
-    syn = synthetic_model(model, t, pos_err, vel_err, relative_to=relative_to)
-    jac = numerical_jacobian(syn.residuals, result.internal, free, _steps(model, result, free),
-                             syn.layout, syn.residual_owner())[: syn.n_data]
-    row_t = np.concatenate([syn.pos.t, syn.pos.t, syn.vel.t])
-    col = {q: int(np.sum(free[: names.index(q)])) for q in targets}
-    sets = [row_t == e for e in t] + [np.ones(row_t.size, bool)]
-    sig_now, sig_after = information_gain(info0, jac, sets)
-    rows = []
-    for k in range(len(sets)):
-        row = {"candidate": "all" if k == len(t) else f"{t[k]:.4f}",
-               "epoch": np.nan if k == len(t) else t[k]}
-        for q in targets:
-            now, after = sig_now[col[q]], sig_after[k, col[q]]
-            row[f"sigma_now_{q}"] = now
-            row[f"sigma_after_{q}"] = after
-            row[f"gain_{q}"] = 1.0 - after / now if np.isfinite(now) else np.nan
-        rows.append(row)
-    table = pd.DataFrame(rows)
-    for q in targets:
-        if not np.isfinite(sig_now[col[q]]):
-            notes.append(f"{q} is not constrained by the data in hand; its gain is not defined")
-        gain = table[f"gain_{q}"].to_numpy()[:-1]
-        order = np.argsort(-np.nan_to_num(gain, nan=-np.inf), kind="stable")
-        rank = np.empty(len(gain) + 1)
-        rank[order] = np.arange(1, len(gain) + 1)
-        rank[-1] = np.nan
-        table[f"rank_{q}"] = rank
-    return table, notes
-
-
 # ------------------------------------------------------------------ the plan
-def _default_errors(model):
-    pos = float(np.median(np.minimum(model.pos.ra_err, model.pos.dec_err)))
-    vel = float(np.median(model.vel.vr_err)) if model.vel is not None else 10.0
-    return pos, vel
+def _round_error(x):
+    """An error rounded to two significant figures (common practice)."""
+    return float(f"{x:.2g}")
+
+
+def default_errors(model):
+    """Errors of a new epoch when none is stated, and where each comes from.
+
+    The median stated error of the data set observed most recently (positions:
+    the smaller of the two coordinates' errors), rounded to two significant
+    figures: the instrument in use now, not a median over every instrument.
+
+    Returns
+    -------
+    pos_err : float
+        mas per coordinate.
+    vel_err : float
+        km/s (10 km/s when there are no velocities).
+    sources : tuple of str
+        One sentence each, naming the data set.
+    """
+    err = np.minimum(model.pos.ra_err, model.pos.dec_err)
+    latest = model.pos.dataset[int(np.argmax(model.pos.t))]
+    pos = _round_error(np.median(err[model.pos.dataset == latest]))
+    sources = [f"astrometry error {pos:g} mas: the median stated error of data set "
+               f"'{latest}', the one observed most recently"]
+    if model.vel is not None and model.vel.n:
+        vlatest = model.vel.dataset[int(np.argmax(model.vel.t))]
+        vel = _round_error(np.median(model.vel.vr_err[model.vel.dataset == vlatest]))
+        sources.append(f"velocity error {vel:g} km/s: the median stated error of data set "
+                       f"'{vlatest}', the one observed most recently")
+    else:
+        vel = 10.0
+        sources.append("velocity error 10 km/s: there are no velocities in hand (a typical "
+                       "value for bright stars)")
+    return pos, vel, tuple(sources)
 
 
 def check_plan_settings(s):
@@ -569,9 +438,24 @@ def check_plan_settings(s):
             refuse("--epochs-file", "every candidate epoch must be a finite number")
     for option, value in (("--astrometry-error", s.astrometry_error),
                           ("--velocity-error", s.velocity_error),
-                          ("--resolution", s.resolution)):
+                          ("--resolution", s.resolution),
+                          ("--astrometry-field", s.astrometry_field),
+                          ("--velocity-field", s.velocity_field)):
         if value is not None and not (np.isfinite(value) and value > 0):
             refuse(option, f"must be a positive number, not {value!r}")
+
+
+def _chosen_stars(result, stars):
+    """The stars to plan for, checked against the fit (one-line error naming --stars)."""
+    known = list(result.model.stars)
+    if stars is None:
+        return known
+    unknown = [st for st in stars if st not in known]
+    if unknown or not stars:
+        raise InputError(f"no star {', '.join(map(repr, unknown))} in the fit; its stars are "
+                         f"{', '.join(known)}" if unknown else "name at least one star",
+                         column="--stars")
+    return [st for st in known if st in stars]
 
 
 def make_plan(result, settings, samples=None):
@@ -590,30 +474,57 @@ def make_plan(result, settings, samples=None):
     """
     s = settings
     check_plan_settings(s)
-    pos_err, vel_err = _default_errors(result.model)
+    chosen = _chosen_stars(result, s.stars)
+    pos_err, vel_err, sources = default_errors(result.model)
     notes = []
-    if s.astrometry_error is None or s.velocity_error is None:
-        notes.append("per-epoch errors not stated: the median stated errors of the data in "
-                     "hand are used")
-    pos_err = pos_err if s.astrometry_error is None else s.astrometry_error
-    vel_err = vel_err if s.velocity_error is None else s.velocity_error
-    s = dataclasses.replace(s, astrometry_error=pos_err, velocity_error=vel_err)
+    used = []
+    if s.astrometry_error is None:
+        used.append(sources[0])
+    else:
+        pos_err = s.astrometry_error
+        used.append(f"astrometry error {pos_err:g} mas: as stated")
+    if s.velocity_error is None:
+        used.append(sources[1])
+    else:
+        vel_err = s.velocity_error
+        used.append(f"velocity error {vel_err:g} km/s: as stated")
+    s = dataclasses.replace(s, astrometry_error=pos_err, velocity_error=vel_err,
+                            stars=None if s.stars is None else tuple(chosen),
+                            error_sources=tuple(used))
     rng = np.random.default_rng(s.seed)
     draws = draw_vectors(result, s.n_draws, rng, samples)
     step = s.step or (s.end - s.start) / 250.0
     grid = np.arange(s.start, s.end + 0.5 * step, step)
     table, vals = predict_grid(result, grid, draws)
-    best = table[["ra", "dec"]].to_numpy().T.reshape(2, len(result.model.stars), grid.size)
-    approaches = close_approaches(list(result.model.stars), grid, vals[0], vals[1], best[0],
-                                  best[1], s.resolution)
+    stars = list(result.model.stars)
+    best = table[["ra", "dec"]].to_numpy().T.reshape(2, len(stars), grid.size)
+    approaches = close_approaches(stars, grid, vals[0], vals[1], best[0], best[1],
+                                  s.resolution)
+    approaches = approaches[approaches["star_a"].isin(chosen)
+                            | approaches["star_b"].isin(chosen)].reset_index(drop=True)
     passages = next_passages(result, s.start, draws)
+    passages = passages[passages["star"].isin(chosen)].reset_index(drop=True)
+    table = table[table["star"].isin(chosen)].reset_index(drop=True)
     cand = candidate_epochs(s.start, s.end, s.months, s.per_season, s.epochs)
     if cand.size == 0:
         raise InputError("no candidate epoch is left in the span and the observable months")
-    forecast, fnotes = fisher_forecast(result, cand, pos_err, vel_err, s.relative_to, samples)
+    forecast, fnotes = fisher_forecast(result, cand, pos_err, vel_err, s.relative_to, samples,
+                                       stars=chosen, astrometry_field=s.astrometry_field,
+                                       velocity_field=s.velocity_field)
     notes += fnotes
+    if s.stars is not None:
+        notes.append(f"planned for {plural(len(chosen), 'star')} of {len(stars)} "
+                     f"({', '.join(chosen)}); close approaches are still checked against "
+                     "every star of the fit")
+    for label, field_mas, column in (("astrometry", s.astrometry_field, "n_astrometry"),
+                                     ("spectroscopy", s.velocity_field, "n_velocity")):
+        if field_mas is not None:
+            n = forecast[column].to_numpy()[:-1]
+            notes.append(f"{label} field of view {field_mas:g} mas around the mass: "
+                         f"{int(n.min())} to {int(n.max())} of {len(chosen)} chosen stars "
+                         "inside it at the candidate epochs (best-fit separations)")
     width = (table["sep_hi95"] - table["sep_lo95"]).to_numpy()
-    poor = tuple(st for st in result.model.stars
+    poor = tuple(st for st in chosen
                  if np.median(width[table["star"] == st]
                               / np.maximum(table["sep"][table["star"] == st], 1e-9)) > 0.5)
     if poor:
@@ -621,7 +532,8 @@ def make_plan(result, settings, samples=None):
                       "the separation): " + ", ".join(poor) + "; their predictions are "
                       "uncertain and should not be used to point without care")
     return Plan(s, table, passages, approaches, forecast, tuple(notes),
-                "covariance" if samples is None else "posterior samples", poor)
+                "covariance" if samples is None else "posterior samples", poor,
+                tuple(season_intervals(s.start, s.end, s.months)))
 
 
 def load_samples(path, result):

@@ -21,7 +21,8 @@ from deepwell.results.effect_sizes import star_effect_sizes
 from .style import MODEL_COLOUR, PALETTE, STYLE, file_stem, new_figure, style_of, unique_names
 
 __all__ = ["redshift_curves",
-           "precession_curves", "redshift_figure", "precession_figure", "effect_stem"]
+           "precession_curves", "redshift_figure", "precession_figure", "effect_stem",
+           "strength_text"]
 
 #: Colours of the two effect strengths (Okabe-Ito: blue for 1, vermillion for 0).
 STRENGTH_ONE, STRENGTH_ZERO = PALETTE[3], PALETTE[4]
@@ -153,8 +154,18 @@ def _strength(result, name):
     return free, float(result.internal[i]), float(result.sigma(name)) if free else 0.0
 
 
-def _strength_text(symbol, free, value, sigma):
-    """Title words: "fitted f = 1.02 ± 0.05" or "f held at 1" (never "fitted" when held)."""
+def strength_text(result, name, symbol):
+    """Caption words: "fitted f = 1.02 ± 0.05" or "f held at 1" (never "fitted" when held).
+
+    Parameters
+    ----------
+    result : deepwell.fit.result.FitResult
+    name : {"f", "f_sp"}
+        The effect strength (dimensionless).
+    symbol : str
+        How it is written in the caption.
+    """
+    free, value, sigma = _strength(result, name)
     if free:
         return f"fitted {symbol} = {value:.3g} ± {sigma:.2g}"
     return f"{symbol} held at {value:.3g}"
@@ -172,8 +183,8 @@ def _data(ax, t, resid, err, datasets, offset=0):
 def redshift_figure(star, d):
     """Draw :func:`redshift_curves` output ``d``; returns a Figure."""
     with matplotlib.rc_context(STYLE):
-        fig = new_figure((7.6, 4.0))
-        ax = fig.add_axes((0.1, 0.13, 0.54, 0.75))
+        fig = new_figure((7.6, 3.8))
+        ax = fig.add_axes((0.1, 0.13, 0.54, 0.82))
         ax.axhline(0.0, color=MODEL_COLOUR, lw=0.8, label="Newtonian orbit (all effects off)")
         ax.plot(d["t"], d["f1"], color=STRENGTH_ONE, lw=1.2, label="model, f = 1 (relativity)")
         ax.plot(d["t"], d["f0"], color=STRENGTH_ZERO, lw=1.2, ls="--",
@@ -189,18 +200,15 @@ def redshift_figure(star, d):
         ax.set_ylabel(r"$v_r - v_{r,\mathrm{Newton}}$ (km/s)")
         ax.set_xlim(d["t"][0], d["t"][-1])
         ax.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0)
-        words = _strength_text("f", d.get("f_free", False), d["f_fit"], d.get("f_sigma", 0.0))
-        fig.suptitle(f"Star {star}: redshift at pericentre ({words})",
-                     fontsize=10, fontweight="bold")
     return fig
 
 
 def precession_figure(star, d):
     """Draw :func:`precession_curves` output ``d``; returns a Figure."""
-    labels = (r"$\Delta\alpha\cos\delta$ (mas)", r"$\Delta\delta$ (mas)")
+    labels = (r"$\Delta\alpha\cos\delta$ res. (mas)", r"$\Delta\delta$ res. (mas)")
     with matplotlib.rc_context(STYLE):
         fig = new_figure((7.8, 4.8))
-        axes = [fig.add_axes((0.1, 0.53, 0.54, 0.36)), fig.add_axes((0.1, 0.11, 0.54, 0.36))]
+        axes = [fig.add_axes((0.1, 0.555, 0.54, 0.41)), fig.add_axes((0.1, 0.11, 0.54, 0.41))]
         for j, ax in enumerate(axes):
             ax.axhline(0.0, color=MODEL_COLOUR, lw=0.8, label="Newtonian orbit (all effects off)")
             ax.plot(d["t"], d["sp1"][j], color=STRENGTH_ONE, lw=1.2,
@@ -211,15 +219,11 @@ def precession_figure(star, d):
                 ax.plot(d["t"], d["spfit"][j], color=MODEL_COLOUR, lw=1.0, ls="-.",
                         label=rf"model, fitted $f_\mathrm{{SP}}$ = {d['f_sp_fit']:.3g}")
             _data(ax, d["t_data"], d["resid_data"][j], d["err_data"][j], d["dataset"])
-            ax.set_ylabel(labels[j] + " res.")
+            ax.set_ylabel(labels[j])
             ax.set_xlim(d["t"][0], d["t"][-1])
         axes[0].tick_params(labelbottom=False)
         axes[1].set_xlabel("epoch (Julian yr)")
         axes[0].legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0)
-        words = _strength_text("f_SP", d.get("f_sp_free", False), d["f_sp_fit"],
-                               d.get("f_sp_sigma", 0.0))
-        fig.suptitle(f"Star {star}: sky positions against the Newtonian orbit ({words})",
-                     fontsize=10, fontweight="bold")
     return fig
 
 
@@ -239,7 +243,9 @@ def effect_figure_jobs(result, sizes):
             jobs.append((effect_stem("redshift", star),
                          lambda st=star: redshift_figure(st, redshift_curves(result, st,
                                                                              sizes[st])),
-                         f"Star {star}: radial velocities around pericentre minus a Newtonian "
+                         f"Star {star}: redshift at pericentre "
+                         f"({strength_text(result, 'f', 'f')}). "
+                         "Radial velocities around pericentre minus a Newtonian "
                          "orbit with the same fitted elements and every effect off. Solid: the "
                          "full model with redshift factor f = 1; dashed: f = 0 (what remains is "
                          "the Rømer delay and precession). The redshift excess at pericentre is "
@@ -248,7 +254,9 @@ def effect_figure_jobs(result, sizes):
         if "f_sp" in m.layout.extra and s["detectable_precession"] and m.integrated[k]:
             jobs.append((effect_stem("precession", star),
                          lambda st=star: precession_figure(st, precession_curves(result, st)),
-                         f"Star {star}: sky positions minus a Newtonian orbit with the same fitted "
+                         f"Star {star}: sky positions against the Newtonian orbit "
+                         f"({strength_text(result, 'f_sp', 'f_SP')}). "
+                         "Sky positions minus a Newtonian orbit with the same fitted "
                          "elements and frame, every effect off. Solid: the full model with the "
                          "1PN terms (f_SP = 1); dashed: f_SP = 0. The precession moves the orbit "
                          f"by {s['precession_mas']:.2g} mas per revolution against a smallest "

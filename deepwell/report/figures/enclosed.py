@@ -16,9 +16,9 @@ from deepwell.core.constants import PC_AU
 from deepwell.results.compactness import GALAXY_AGE_YR, schwarzschild_radius_au
 from deepwell.results.enclosed import model_curves, no_dark_cluster_radius_au
 
-from .style import COLOUR, STYLE, new_figure, save_figure
+from .style import COLOUR, SOLAR_MASS, STYLE, new_figure, save_figure
 
-__all__ = ["figure_data", "plot_enclosed_mass"]
+__all__ = ["figure_data", "plot_enclosed_mass", "enclosed_figure", "enclosed_caption"]
 
 _MODEL_STYLE = {"point": (COLOUR["black"], "-"), "plummer": (COLOUR["vermillion"], "--"),
                 "cusp": (COLOUR["green"], "-.")}
@@ -95,7 +95,7 @@ def measured_window(profile, pad=0.15):
 
 def _stars(ax, ax_ratio, d, joint):
     for poor, label in ((False, "per-star mass (bar: pericentre to apocentre)"),
-                        (True, "poorly constrained (sigma/M > 20% or coverage < 0.5)")):
+                        (True, "poorly constrained (σ/M > 20% or coverage < 0.5)")):
         sel = d["poor"] == poor
         if not sel.any():
             continue
@@ -122,22 +122,35 @@ def plot_enclosed_mass(profile, path_stem, model_settings=None,
     models : tuple of str
         Model curves to draw.
     galaxy_age_yr : float
-        Age against which dark-cluster lifetimes are compared.
+        Age against which dark-cluster lifetimes are compared (yr).
 
     Returns
     -------
     list of Path
         The PDF and the PNG (200 dpi).
     """
+    stem = Path(path_stem)
+    fig = enclosed_figure(profile, model_settings, models, galaxy_age_yr)
+    return save_figure(fig, stem.parent, stem.name)
+
+
+def enclosed_figure(profile, model_settings=None, models=("point", "plummer", "cusp"),
+                    galaxy_age_yr=GALAXY_AGE_YR):
+    """The enclosed-mass figure (see :func:`plot_enclosed_mass`), not saved.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
     d = figure_data(profile, model_settings, models, galaxy_age_yr)
     m, sig = profile.joint_mass, profile.joint_mass_sigma
     with matplotlib.rc_context(STYLE):
-        fig = new_figure((6.4, 5.6))
-        ax = fig.add_axes((0.12, 0.40, 0.50, 0.46))
-        axr = fig.add_axes((0.12, 0.17, 0.50, 0.20), sharex=ax)
+        fig = new_figure((6.4, 5.0))
+        ax = fig.add_axes((0.12, 0.37, 0.50, 0.52))
+        axr = fig.add_axes((0.12, 0.10, 0.50, 0.24), sharex=ax)
         ax.tick_params(labelbottom=False)
         ax.axhspan(m - sig, m + sig, color=COLOUR["sky"], alpha=0.5, lw=0,
-                   label=f"joint point mass\n{m:.4g} +/- {sig:.2g} Msun")
+                   label=f"joint point mass\n{_value_error(m, sig)} {SOLAR_MASS}")
         ax.axhline(m, color=COLOUR["black"], lw=0.8, zorder=2)
         for name, (label, curve) in d["curves"].items():
             if name == "point":
@@ -151,30 +164,46 @@ def plot_enclosed_mass(profile, path_stem, model_settings=None,
                         color=COLOUR["orange"], label="external constraints", zorder=4)
         axr.axhline(0.0, color=COLOUR["black"], lw=0.8)
         ax.set(xscale="log", xlim=d["x_measured"], ylim=d["y_measured"],
-               ylabel="enclosed mass (Msun)")
+               ylabel=f"enclosed mass ({SOLAR_MASS})")
         ax.ticklabel_format(axis="y", style="sci", scilimits=(0, 0), useMathText=True)
-        axr.set(xlabel="radius (au)", ylabel="M_star / M - 1")
+        axr.set(xlabel="radius (au)", ylabel=r"$M_\star/M - 1$ (dimensionless)")
         top = ax.secondary_xaxis("top", functions=(lambda r: r / PC_AU, lambda p: p * PC_AU))
         top.set_xlabel("radius (pc)")
-        c = profile.consistency
-        g = profile.consistency_good
-        fig.text(0.12, 0.975, f"per-star masses against one point mass: all stars chi2 = "
-                 f"{c.chi2:.1f} for {c.dof} dof, p = {c.p_value:.2g};\nwell constrained "
-                 f"stars chi2 = {g.chi2:.1f} for {g.dof} dof, p = {g.p_value:.2g}", va="top",
-                 fontsize=6.5)
         handles, labels = ax.get_legend_handles_labels()
-        _overview(fig.add_axes((0.73, 0.58, 0.25, 0.28)), d, m)
+        _overview(fig.add_axes((0.73, 0.58, 0.25, 0.31)), d, m)
         fig.legend(handles, [textwrap.fill(t, 40) for t in labels], loc="upper left",
                    bbox_to_anchor=(0.655, 0.47), fontsize=6.0)
-        fig.text(0.01, 0.01, "Left: the radii and masses the stars measure (linear mass axis). "
-                 "Right: the whole range from the Schwarzschild radius (purple) outwards; "
-                 "yellow:\nno dark cluster of this mass survives the galaxy's age (Maoz 1998 "
-                 "criterion); grey box: the left panel. Per-star errors exclude the distance "
-                 "error.\nModel curves other than the point mass are illustrative. Open "
-                 "symbols: poorly constrained masses; their errors may be unreliable.",
-                 fontsize=6.0, va="bottom")
-        stem = Path(path_stem)
-        return save_figure(fig, stem.parent, stem.name)
+    return fig
+
+
+def _value_error(value, sigma):
+    """``(3.205 ± 0.010) × 10^6`` in mathtext: the value rounded to two digits of its error."""
+    exp = int(np.floor(np.log10(abs(value)))) if value else 0
+    v, s = value / 10.0**exp, sigma / 10.0**exp
+    digits = max(0, 1 - int(np.floor(np.log10(s)))) if s > 0 else 3
+    return rf"$({v:.{digits}f} \pm {s:.{digits}f}) \times 10^{{{exp}}}$"
+
+
+def enclosed_caption(profile):
+    """Caption of the enclosed-mass figure, with the consistency test it shows.
+
+    The text once printed on the figure (the chi-square of the per-star
+    masses against one point mass, and the key to the panels) is here:
+    journals set captions outside the figure.
+    """
+    c, g = profile.consistency, profile.consistency_good
+    return ("Enclosed mass: per-star Keplerian masses (each star refitted with its own central "
+            "mass; horizontal bars run from pericentre to apocentre) against the joint point "
+            "mass (band: ±1σ). Per-star masses against one point mass: all stars "
+            f"χ² = {c.chi2:.1f} for {c.dof} degrees of freedom (p = {c.p_value:.2g}); well "
+            f"constrained stars χ² = {g.chi2:.1f} for {g.dof} (p = {g.p_value:.2g}). "
+            "Left: the radii and masses the stars measure (linear mass axis); lower panel: "
+            "per-star mass over the joint mass minus one. Right: the whole range from the "
+            "Schwarzschild radius (purple line) outwards; yellow: no dark cluster of this mass "
+            "survives the galaxy's age (Maoz 1998 criterion); grey box: the left panel. "
+            "Per-star errors exclude the distance error. Curves other than the point mass are "
+            "illustrative, not fitted. Open symbols: poorly constrained masses; their errors "
+            "may be unreliable.")
 
 
 def _overview(ins, d, m):
@@ -191,8 +220,9 @@ def _overview(ins, d, m):
     ins.add_patch(matplotlib.patches.Rectangle((x0, y0), x1 - x0, y1 - y0, fill=False,
                                                ec="0.35", lw=0.8, zorder=6))
     ins.set(xscale="log", yscale="log", xlim=d["x_range"], ylim=(0.5 * m, 5.0 * m),
-            xlabel="radius (au)", ylabel="enclosed mass (Msun)")
-    ins.set_title("whole range", fontsize=7, fontweight="normal")
+            xlabel="radius (au)", ylabel=f"enclosed mass ({SOLAR_MASS})")
+    ins.text(0.04, 0.96, "whole range", transform=ins.transAxes, ha="left", va="top",
+             fontsize=6.5)
     ins.tick_params(labelsize=6)
     ins.xaxis.label.set_size(6.5)
     ins.yaxis.label.set_size(6.5)

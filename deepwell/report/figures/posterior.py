@@ -14,7 +14,7 @@ from scipy import ndimage
 from deepwell.model.epochs import model_at_epochs, star_vector
 from deepwell.model.kernels.orbit import keplerian_track
 
-from .style import MODEL_COLOUR, PALETTE, STYLE, new_figure
+from .style import MODEL_COLOUR, PALETTE, SOLAR_MASS, STYLE, new_figure, unit_label
 
 __all__ = ["corner_labels", "corner_figure", "credible_levels", "mass_distance_data",
            "mass_distance_figure", "predictive_draws", "velocity_band", "sky_draw_tracks",
@@ -45,8 +45,8 @@ def corner_figure(posterior, names):
     labels = corner_labels(posterior, names)
     idx = [posterior.labels.index(n) for n in labels]
     data = posterior.flat_samples[:, idx]
-    axis = [f"{n} ({posterior.units[i]})" if posterior.units[i] else n
-            for n, i in zip(labels, idx, strict=True)]
+    axis = [f"{n} ({unit_label(posterior.units[i])})" if posterior.units[i]
+            else f"{n} (dimensionless)" for n, i in zip(labels, idx, strict=True)]
     with matplotlib.rc_context(STYLE):
         size = max(4.0, 1.35 * len(labels))
         fig = new_figure((size, size))
@@ -124,7 +124,7 @@ def mass_distance_figure(posterior, least_squares=None):
     t1, t2 = dd["thresholds"]
     with matplotlib.rc_context(STYLE):
         fig = new_figure((5.0, 4.4))
-        ax = fig.add_axes((0.17, 0.13, 0.78, 0.78))
+        ax = fig.add_axes((0.17, 0.12, 0.78, 0.84))
         ax.contourf(dd["mass"], dd["distance"], dd["density"], levels=[t2, t1, np.inf],
                     colors=[PALETTE[1], PALETTE[3]], alpha=0.6)
         ax.contour(dd["mass"], dd["distance"], dd["density"], levels=[t2, t1],
@@ -137,10 +137,9 @@ def mass_distance_figure(posterior, least_squares=None):
             (m, sm), (d, sd) = least_squares
             ax.errorbar([m], [d], xerr=[sm], yerr=[sd], fmt="s", color=PALETTE[4], ms=4,
                         mfc="none", label="least squares ± 1σ")
-        ax.set_xlabel("central mass (Msun)")
+        ax.set_xlabel(f"central mass ({SOLAR_MASS})")
         ax.set_ylabel("distance (pc)")
         ax.legend(loc="best")
-        ax.set_title("joint posterior of mass and distance", fontweight="normal")
     return fig
 
 

@@ -17,7 +17,8 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 __all__ = ["PALETTE", "MARKERS", "MODEL_COLOUR", "COLOUR", "MASS_MARKER", "STYLE", "FORMATS",
-           "style_of", "new_figure", "unique_names", "file_stem", "save_figure"]
+           "SOLAR_MASS", "RASTER_POINTS", "unit_label", "style_of", "new_figure",
+           "unique_names", "file_stem", "save_figure"]
 
 #: File formats of every figure: PDF (vector) and PNG (raster at STYLE["savefig.dpi"]).
 FORMATS = ("pdf", "png")
@@ -39,6 +40,37 @@ MODEL_COLOUR = "#000000"
 #: The same palette by colour name (and black), for figures that give colours a meaning.
 COLOUR = dict(zip(("orange", "sky", "green", "blue", "vermillion", "purple", "yellow"), PALETTE,
                   strict=True), black=MODEL_COLOUR)
+
+
+#: The one spelling of the solar mass in figure labels (mathtext).
+SOLAR_MASS = r"$M_\odot$"
+
+#: Above this many points in one figure, point layers are rasterised (drawn as an
+#: image inside the PDF at STYLE["savefig.dpi"]) and drawn without error bars, so a
+#: survey-scale figure stays small and quick to open; lines and text stay vector.
+RASTER_POINTS = 5000
+
+_UNIT_LABELS = {"solMass": SOLAR_MASS, "km / s": "km/s", "mas / yr": "mas/yr", "AU": "au",
+                "yr": "yr", "deg": "deg", "mas": "mas", "pc": "pc", "au": "au"}
+
+
+def unit_label(unit):
+    r"""How an astropy unit string is written on a figure axis (``solMass`` -> M_sun).
+
+    Parameters
+    ----------
+    unit : str or None
+        Astropy unit string from :mod:`deepwell.core.units`; ``""`` or None is
+        dimensionless.
+
+    Returns
+    -------
+    str
+        The unit as printed, e.g. ``r"$M_\odot$"``, ``"km/s"``; ``""`` when dimensionless.
+    """
+    if not unit:
+        return ""
+    return _UNIT_LABELS.get(unit, unit.replace(" / ", "/"))
 
 
 MASS_MARKER = dict(marker="+", s=110, color=MODEL_COLOUR, zorder=6, linewidths=1.4)
