@@ -161,7 +161,8 @@ def nested_log_evidence(log_likelihood, prior, nlive=None, dlogz=0.5, rng=None,
     -------
     dict
         ``log_evidence``, ``log_evidence_err``, ``n_calls``, ``n_iterations``,
-        ``finished``, ``log_likelihood_max``, ``seconds``.
+        ``iteration_calls`` (calls spent on each iteration's new point), ``finished``,
+        ``log_likelihood_max``, ``seconds``.
     """
     import dynesty  # lazy: a heavy optional library, needed only for nested runs
 
@@ -193,6 +194,7 @@ def nested_log_evidence(log_likelihood, prior, nlive=None, dlogz=0.5, rng=None,
         "log_evidence_err": float(out.logzerr[-1]),
         "n_calls": int(np.sum(out.ncall)),
         "n_iterations": int(out.niter),
+        "iteration_calls": np.asarray(out.ncall[:int(out.niter)], dtype=int),
         "finished": finished,
         "log_likelihood_max": float(np.max(out.logl)),
         "seconds": time.perf_counter() - t0,
