@@ -318,14 +318,17 @@ def _progress(enabled, total):
 
 
 def run_trials(client, spec, n_trials, progress=None, in_flight=None, done=None,
-               on_record=None):
+               on_record=None, task=None):
     """Run trials 0..n_trials-1 on ``client``; return the records in trial order.
 
     At most ``in_flight`` trials (default 4 per worker) are submitted at once.
     A trial whose worker dies is recorded as failed with the Dask error.
     ``done`` maps trial index -> record of trials already run (they are not
     run again); ``on_record(record)`` is called as each new trial finishes.
+    ``task(index, spec) -> record`` runs one trial (default :func:`run_trial`;
+    it must never raise and its record has ``trial`` and ``status``).
     """
+    task = task or run_trial
     from distributed import as_completed
 
     try:
@@ -343,7 +346,7 @@ def run_trials(client, spec, n_trials, progress=None, in_flight=None, done=None,
     futures = {}
 
     def submit(i):
-        fut = client.submit(run_trial, i, spec, pure=False, key=f"deepwell-trial-{run_id}-{i}")
+        fut = client.submit(task, i, spec, pure=False, key=f"deepwell-trial-{run_id}-{i}")
         futures[fut.key] = i
         return fut
 
