@@ -225,6 +225,11 @@ def extrapolated_p(observed, null_deltas):
     return float(stats.chi2.sf(observed / c, nu)), "scaled chi-square"
 
 
+def _sigma(z):
+    """A Gaussian-equivalent significance in words (p below double precision past ~37)."""
+    return f"{z:.1f} sigma" if np.isfinite(z) else "more than 37 sigma (p below 1e-300)"
+
+
 def _p_text(t):
     if t.p is None:
         return None
@@ -235,7 +240,7 @@ def _p_text(t):
         p_x, law = extrapolated_p(t.delta, t.null_deltas)
         if p_x is not None:
             z_x = float(stats.norm.isf(p_x)) if p_x > 0 else float("inf")
-            text += (f"; extrapolated p = {p_x:.2g} ({z_x:.1f} sigma) from a {law} law "
+            text += (f"; extrapolated p = {p_x:.2g} ({_sigma(z_x)}) from a {law} law "
                      "matched to the null's mean and variance")
         return text
     return f"bootstrap p = {t.p:.3g} (95% interval {lo:.2g}-{hi:.2g}, {n} data sets; " \
@@ -275,7 +280,7 @@ def _strength_text(name, value):
             f"{abs(v - 1.0) / s:.1f} sigma from 1 (general relativity)")
 
 
-def _verdict(t, row, reference_radius, coverage):
+def _verdict(t, row, parent, reference_radius, coverage):
     z, why = _significance(t)
     head = f"{t.tests}: Delta chi-square = {t.delta:.2f}"
     if row.key in ("f-free", "f_sp-free"):
@@ -293,12 +298,15 @@ def _verdict(t, row, reference_radius, coverage):
             up = truncated_gaussian_upper_limit(x, s, 0.95) * m if s else float("nan")
             text = (f"{head}; no extended mass needed: 95% upper limit {up:.3g} solMass "
                     f"{where} (least-squares value truncated at M_ext >= 0); {why}")
+    elif t.delta < 0:
+        text = (f"{head}; not supported: the model fits worse than the simpler one (a "
+                f"bootstrap p, if any, then says only that the simpler model fails too: {why})")
     elif z is None and t.p == 0.0:
         text = f"{head}; beyond every simulated value, too few data sets to say more ({why})"
     elif z is None:
         text = f"{head}; {why}"
     elif z >= DETECTION_SIGMA:
-        text = f"{head}; detected at {'about ' if t.p == 0.0 else ''}{z:.1f} sigma ({why})"
+        text = f"{head}; detected at {'about ' if t.p == 0.0 and np.isfinite(z) else ''}{_sigma(z)} ({why})"
     else:
         text = f"{head}; not detected (below {DETECTION_SIGMA:g} sigma: {why})"
     if t.tests in ("relativistic redshift", "Schwarzschild precession") and not coverage:
@@ -307,6 +315,10 @@ def _verdict(t, row, reference_radius, coverage):
                  "anomaly), where this effect builds up")
     if not row.converged:
         text += "; NOTE: this model's fit did not converge"
+    red = [r.chi2 / r.dof for r in (row, parent) if r.dof > 0]
+    if red and min(red) > ERRORS_TOO_SMALL:
+        text += (f"; NOTE: neither model fits (reduced chi-square {red[-1]:.2f} and "
+                 f"{red[0]:.2f}), so this step compares two inadequate models")
     return text + "."
 
 
@@ -354,7 +366,9 @@ def compare_models(ladder, bootstrap=None, bootstrap_info=None):
             t = dataclasses.replace(t, null_deltas=np.asarray(deltas, float), p=p,
                                     p_interval=interval, z=z, z_lower=z_lower,
                                     n_failed=int(failed))
-        tests.append(dataclasses.replace(t, verdict=_verdict(t, row, ref, covered)))
+        tests.append(dataclasses.replace(
+            t, verdict=_verdict(t, row, next(r for r in rows if r.key == f.rung.parent), ref,
+                                covered)))
     return ModelComparison(tuple(rows), tuple(tests), tuple(_notes(ladder, rows, covered)),
                            n_data, ref, bootstrap_info)
 
