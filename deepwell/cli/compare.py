@@ -34,8 +34,8 @@ def add_compare_parser(sub):
     boot.add_argument("--bootstrap", type=count(0), default=0, metavar="N",
                       help="simulated data sets per tested step (default 0: none)")
     boot.add_argument("--test", action="append", metavar="MODEL",
-                      help="bootstrap only this model's step (repeatable; default: romer, "
-                           "redshift, precession and every extended-mass model)")
+                      help="bootstrap only this model's step (repeatable; default: precession, "
+                           "no-romer, no-redshift and every extended-mass model)")
     boot.add_argument("--fitted-errors", action="store_true",
                       help="simulate with the stated errors times sqrt(chi2/dof) of the "
                            "simpler model")

@@ -8,7 +8,10 @@
 4. ``precession``: + 1PN (Schwarzschild) precession, f_sp held at 1;
 5. ``extended-<b>``: + a Plummer sphere of scale radius b (au), its mass
    ``ext_fraction`` free, one rung per requested radius, each on top of 4;
-6. ``f-free`` and ``f_sp-free``: model 4 with f, respectively f_sp, fitted.
+6. ``no-romer`` and ``no-redshift``: model 4 without the Romer delay, respectively
+   without the redshift -- the simpler model of a "given everything else" test of
+   that effect (model 4 against model 3 is the same test for the precession);
+7. ``f-free`` and ``f_sp-free``: model 4 with f, respectively f_sp, fitted.
 
 Only the first fit searches for starting orbits (:func:`deepwell.fit.fit_joint`,
 or a given finished fit); every other rung starts from the solution of the
@@ -58,9 +61,13 @@ class Rung:
         Effect strengths fitted (``f``, ``f_sp``; ``ext_fraction`` always is
         when the extended mass is on).
     parent : str or None
-        Key of the simpler model it is compared with.
+        Key of the model it starts from and is compared with (the simpler one,
+        unless ``drops``).
     tests : str or None
         What the comparison with the parent tests, in words.
+    drops : bool
+        The rung drops an effect of its parent: it is the simpler model of
+        its comparison.
     """
 
     key: str
@@ -69,6 +76,14 @@ class Rung:
     free: tuple = ()
     parent: str | None = None
     tests: str | None = None
+    drops: bool = False
+
+    @property
+    def pair(self):
+        """(simpler, richer) model keys of the rung's comparison, or None."""
+        if self.parent is None:
+            return None
+        return (self.key, self.parent) if self.drops else (self.parent, self.key)
 
     @property
     def scale_radius(self):
@@ -104,12 +119,18 @@ def ladder_rungs(scale_radii=(), redshift_form="exact"):
         Rung("redshift", "+ redshift (f = 1)", dict(off, romer=True, redshift=redshift_form),
              parent="romer", tests="relativistic redshift"),
         Rung("precession", "+ 1PN precession (f_sp = 1)", gr, parent="redshift",
-             tests="Schwarzschild precession"),
+             tests="Schwarzschild precession, given Romer delay and redshift"),
     ]
     for b in scale_radii:
         rungs.append(Rung(f"extended-{float(b):g}", f"+ Plummer mass, b = {float(b):g} au",
                           dict(gr, extended_mass=True, extended_scale=float(b)),
                           parent="precession", tests=f"extended mass (b = {float(b):g} au)"))
+    rungs.append(Rung("no-romer", "all but the Romer delay", dict(gr, romer=False),
+                      parent="precession", drops=True,
+                      tests="Romer delay, given redshift and precession"))
+    rungs.append(Rung("no-redshift", "all but the redshift", dict(gr, redshift="off"),
+                      parent="precession", drops=True,
+                      tests="relativistic redshift, given Romer delay and precession"))
     rungs.append(Rung("f-free", "f fitted", gr, free=("f",), parent="precession",
                       tests="redshift strength f against 1"))
     rungs.append(Rung("f_sp-free", "f_sp fitted", gr, free=("f_sp",), parent="precession",

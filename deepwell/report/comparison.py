@@ -59,7 +59,7 @@ def _ln_bayes(comparison, row):
 
 def _markdown_table(comparison):
     ev = comparison.has_evidence
-    head = ["model", "chi2", "dof", "Δchi2 vs simpler", "chi2 − min", "AIC", "BIC", "f",
+    head = ["model", "chi2", "dof", "Δchi2 of its step", "chi2 − min", "AIC", "BIC", "f",
             "f_sp", "M_ext(<r_ref)/M", "mass (solMass)", "distance (pc)"]
     if ev:
         head += ["ln Z", "ln Z error", "ln B vs simpler", "evidence method"]
@@ -81,7 +81,8 @@ def comparison_markdown(comparison, figure=None):
     boot = comparison.bootstrap
     lines = ["# Which physics do the data demand?", "",
              f"Every model is fitted to the same {comparison.n_data} data; each starts from "
-             "the solution of the simpler model it is compared with. chi2 excludes priors; "
+             "the solution of the model it is compared with; its step's Delta chi2 is "
+             "chi2(simpler) - chi2(richer) of that pair. chi2 excludes priors; "
              "AIC = chi2 + 2k and BIC = chi2 + k ln n (k free parameters, n data), up to a "
              "constant common to all rows; lower is better. A strength marked (fixed) is "
              "held, not fitted.", "", *_markdown_table(comparison), "", "## Verdicts", ""]
@@ -151,7 +152,7 @@ def models_table(comparison):
     for name in ("f", "f_sp", "ext_fraction"):
         t[name].description = EXTRA[name].description + "; NaN: effect off"
         t[f"{name}_fixed"].description = "true: held at the value given, not fitted"
-    t["delta_parent"].description = "chi2 of the simpler model (parent) minus this chi2"
+    t["delta_parent"].description = "chi2(simpler) - chi2(richer) of the model's step"
     t["delta_best"].description = "this chi2 minus the lowest chi2 of the table"
     t.meta.update({"n_data": comparison.n_data, "reference_radius_au": comparison.reference_radius,
                    "aic": "chi2 + 2 n_free", "bic": "chi2 + n_free ln n_data"})

@@ -95,11 +95,12 @@ class EffectTest:
     Attributes
     ----------
     key, parent : str
-        The richer model and the simpler one.
+        The model and the one it is compared with (the simpler one, except
+        for a model that drops an effect: :attr:`deepwell.fit.ladder.Rung.pair`).
     tests : str
         What is tested, in words.
     delta : float
-        Observed chi2(parent) - chi2(model).
+        Observed chi2(simpler) - chi2(richer).
     extra_free : int
         Free parameters the model adds (0 for a switch with its strength held).
     asymptotic_p : float or None
@@ -160,14 +161,14 @@ def _strength(res, name):
     return (v, res.sigma(name)) if res.free[lay.index(name)] else (v, None)
 
 
-def _row(fit, parents, best, n_data):
+def _row(fit, by_key, best, n_data):
     res, rung = fit.result, fit.rung
     k = res.n_free
-    parent = parents.get(rung.parent)
+    pair = rung.pair
     return ModelRow(
         key=rung.key, label=rung.label, parent=rung.parent, chi2=res.chi2, dof=res.dof,
         n_free=k, n_data=n_data,
-        delta_parent=None if parent is None else parent.chi2 - res.chi2,
+        delta_parent=None if pair is None else by_key[pair[0]].chi2 - by_key[pair[1]].chi2,
         delta_best=res.chi2 - best, aic=res.chi2 + 2 * k, bic=res.chi2 + k * math.log(n_data),
         f=_strength(res, "f"), f_sp=_strength(res, "f_sp"), ext=_strength(res, "ext_fraction"),
         mass=(res.value("mass"), res.sigma("mass")),
@@ -280,7 +281,7 @@ def _strength_text(name, value):
             f"{abs(v - 1.0) / s:.1f} sigma from 1 (general relativity)")
 
 
-def _verdict(t, row, parent, reference_radius, coverage):
+def _verdict(t, row, pair, reference_radius, coverage):
     z, why = _significance(t)
     head = f"{t.tests}: Delta chi-square = {t.delta:.2f}"
     if row.key in ("f-free", "f_sp-free"):
@@ -306,19 +307,20 @@ def _verdict(t, row, parent, reference_radius, coverage):
     elif z is None:
         text = f"{head}; {why}"
     elif z >= DETECTION_SIGMA:
-        text = f"{head}; detected at {'about ' if t.p == 0.0 and np.isfinite(z) else ''}{_sigma(z)} ({why})"
+        about = "about " if t.p == 0.0 and np.isfinite(z) else ""
+        text = f"{head}; detected at {about}{_sigma(z)} ({why})"
     else:
         text = f"{head}; not detected (below {DETECTION_SIGMA:g} sigma: {why})"
-    if t.tests in ("relativistic redshift", "Schwarzschild precession") and not coverage:
+    if ("redshift" in t.tests or "precession" in t.tests) and not coverage:
         text += (f"; NOTE: no star's pericentre passage is covered (at least "
                  f"{PERICENTRE_EPOCHS} epochs within {PERICENTRE_ANGLE:g} deg of true "
                  "anomaly), where this effect builds up")
     if not row.converged:
         text += "; NOTE: this model's fit did not converge"
-    red = [r.chi2 / r.dof for r in (row, parent) if r.dof > 0]
+    red = [r.chi2 / r.dof for r in pair if r.dof > 0]
     if red and min(red) > ERRORS_TOO_SMALL:
-        text += (f"; NOTE: neither model fits (reduced chi-square {red[-1]:.2f} and "
-                 f"{red[0]:.2f}), so this step compares two inadequate models")
+        text += (f"; NOTE: neither model fits (reduced chi-square {red[0]:.2f} and "
+                 f"{red[-1]:.2f}), so this step compares two inadequate models")
     return text + "."
 
 
@@ -353,10 +355,10 @@ def compare_models(ladder, bootstrap=None, bootstrap_info=None):
     covered = _covered_stars(by_key.get("precession", ladder[-1].result))
     tests = []
     for f, row in zip(ladder, rows, strict=True):
-        if f.rung.parent is None:
+        if f.rung.pair is None:
             continue
-        parent = by_key[f.rung.parent]
-        dk = f.result.n_free - parent.n_free
+        null, alt = (by_key[k] for k in f.rung.pair)
+        dk = alt.n_free - null.n_free
         delta = row.delta_parent
         t = EffectTest(f.rung.key, f.rung.parent, f.rung.tests, delta, dk,
                        float(stats.chi2.sf(delta, dk)) if dk > 0 else None)
@@ -367,7 +369,7 @@ def compare_models(ladder, bootstrap=None, bootstrap_info=None):
                                     p_interval=interval, z=z, z_lower=z_lower,
                                     n_failed=int(failed))
         tests.append(dataclasses.replace(
-            t, verdict=_verdict(t, row, next(r for r in rows if r.key == f.rung.parent), ref,
+            t, verdict=_verdict(t, row, [r for r in rows if r.key in f.rung.pair], ref,
                                 covered)))
     return ModelComparison(tuple(rows), tuple(tests), tuple(_notes(ladder, rows, covered)),
                            n_data, ref, bootstrap_info)

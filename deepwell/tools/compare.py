@@ -44,8 +44,9 @@ __all__ = ["BootstrapSpec", "bootstrap_trial", "bootstrap_tests", "run_bootstrap
 
 log = logging.getLogger("deepwell")
 
-#: Models whose step from their parent is bootstrapped by default (and every extended one).
-DEFAULT_TESTS = ("romer", "redshift", "precession")
+#: Models whose step is bootstrapped by default (and every extended one): each effect
+#: tested given all the others.
+DEFAULT_TESTS = ("precession", "no-romer", "no-redshift")
 
 
 @dataclass(frozen=True)
@@ -131,9 +132,9 @@ def run_bootstrap(ladder, n_trials, tests=None, seed=0, fitted_errors=False, cli
     keys = bootstrap_tests(ladder, tests)
     pairs = []
     for k in keys:
-        null = by_key[by_key[k].rung.parent].result
+        null, alt = (by_key[m].result for m in by_key[k].rung.pair)
         scale = float(np.sqrt(null.chi2 / null.dof)) if fitted_errors and null.dof > 0 else 1.0
-        pairs.append((k, null, by_key[k].result, scale))
+        pairs.append((k, null, alt, scale))
     spec = BootstrapSpec(tuple(pairs), int(n_trials), int(seed))
     book = None
     if journal is not None:
