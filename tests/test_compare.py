@@ -272,3 +272,38 @@ def test_evidence_columns_appear_only_when_filled(gr_ladder):
                                    "precession": (-4.0, 0.3, "test")})
     assert filled.has_evidence and filled.row("precession").log_evidence == -4.0
     assert filled.row("romer").log_evidence is None
+
+
+# ------------------------------------------------------------------ slow statistical loops
+def _null_p_values(tight, n_data_sets, n_boot, client, first_seed):
+    """Bootstrap p of the f_sp-free step on data sets made with f_sp = 0 (the null)."""
+    out = []
+    for i in range(n_data_sets):
+        obs = _observations(tight, first_seed + i, precession=0.0)
+        ladder = fit_ladder(obs, Settings())
+        deltas, _ = run_bootstrap(ladder, n_boot, ("f_sp-free",), seed=first_seed + i,
+                                  client=client)
+        d = deltas["f_sp-free"][0]
+        d = d[np.isfinite(d)]
+        observed = next(f.result.chi2 for f in ladder if f.rung.key == "redshift") \
+            - next(f.result.chi2 for f in ladder if f.rung.key == "f_sp-free")
+        k = int(np.sum(d >= observed))
+        out.append(((k + 1) / (d.size + 1), k / d.size))
+    return np.array(out)
+
+
+@pytest.mark.slow
+def test_no_injected_precession_gives_bootstrap_p_above_001_in_95_percent_of_40_trials(
+        tight, client):
+    # Injection-recovery under the null f_sp = 0; 40 trials, 100 bootstrap sets each.
+    p = _null_p_values(tight, 40, 100, client, 1000)[:, 1]
+    assert np.mean(p > 0.01) >= 0.95
+
+
+@pytest.mark.slow
+def test_bootstrap_p_values_under_the_null_are_uniform(tight, client):
+    # Kolmogorov-Smirnov test (scipy.stats.kstest) of 100 null p-values against U(0, 1);
+    # p = (k + 1)/(n + 1) is uniform on its grid under the null (Davison & Hinkley 1997,
+    # Bootstrap Methods and their Application, section 4.2; from memory).
+    p = _null_p_values(tight, 100, 50, client, 2000)[:, 0]
+    assert stats.kstest(p, "uniform").pvalue > 1e-3

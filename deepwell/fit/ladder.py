@@ -11,7 +11,9 @@
 6. ``no-romer`` and ``no-redshift``: model 4 without the Romer delay, respectively
    without the redshift -- the simpler model of a "given everything else" test of
    that effect (model 4 against model 3 is the same test for the precession);
-7. ``f-free`` and ``f_sp-free``: model 4 with f, respectively f_sp, fitted.
+7. ``f-free`` and ``f_sp-free``: model 4 with f, respectively f_sp, fitted,
+   compared with the model without that effect (``no-redshift``, ``redshift``):
+   one added free parameter, so Wilks' chi-square(1) applies asymptotically.
 
 Only the first fit searches for starting orbits (:func:`deepwell.fit.fit_joint`,
 or a given finished fit); every other rung starts from the solution of the
@@ -131,10 +133,11 @@ def ladder_rungs(scale_radii=(), redshift_form="exact"):
     rungs.append(Rung("no-redshift", "all but the redshift", dict(gr, redshift="off"),
                       parent="precession", drops=True,
                       tests="relativistic redshift, given Romer delay and precession"))
-    rungs.append(Rung("f-free", "f fitted", gr, free=("f",), parent="precession",
-                      tests="redshift strength f against 1"))
-    rungs.append(Rung("f_sp-free", "f_sp fitted", gr, free=("f_sp",), parent="precession",
-                      tests="precession strength f_sp against 1"))
+    rungs.append(Rung("f-free", "f fitted", gr, free=("f",), parent="no-redshift",
+                      tests="redshift strength f against 0, given Romer delay and precession"))
+    rungs.append(Rung("f_sp-free", "f_sp fitted", gr, free=("f_sp",), parent="redshift",
+                      tests="precession strength f_sp against 0, given Romer delay and "
+                            "redshift"))
     return tuple(rungs)
 
 

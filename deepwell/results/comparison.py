@@ -287,7 +287,7 @@ def _verdict(t, row, pair, reference_radius, coverage):
     if row.key in ("f-free", "f_sp-free"):
         name = "f" if row.key == "f-free" else "f_sp"
         value = row.f if name == "f" else row.f_sp
-        text = f"{t.tests}: {_strength_text(name, value)}; {why}"
+        text = f"{t.tests}: {_strength_text(name, value)}; Delta chi-square = {t.delta:.2f}, {why}"
     elif row.ext is not None:
         x, s = row.ext
         m = row.mass[0]
