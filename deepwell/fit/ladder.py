@@ -15,9 +15,11 @@
    compared with the model without that effect (``no-redshift``, ``redshift``):
    one added free parameter, so Wilks' chi-square(1) applies asymptotically.
 
-Only the first fit searches for starting orbits (:func:`deepwell.fit.fit_joint`,
-or a given finished fit); every other rung starts from the solution of the
-model it is compared with (its ``parent``), new strengths at the values that
+Only one fit searches for starting orbits: a full :func:`deepwell.fit.fit_joint`
+with the settings' own model (by default general relativity), or a given
+finished fit; the Newtonian rung starts from its solution (its time includes
+it), and every other rung from the solution of the model it is compared with
+(its ``parent``), new strengths at the values that
 reproduce the parent where the strength is free (0), so a nested rung can only
 lower the chi-square.  The other settings (priors, data-set terms, bounds,
 redshift form, integrated stars rule) are those of the given settings.
@@ -218,7 +220,7 @@ def fit_ladder(observations, settings, scale_radii=(), base=None, progress=None)
         Plummer scale radii b (au), one extended-mass rung each.
     base : deepwell.fit.FitResult, optional
         A finished fit of these data to start from (default: a full
-        :func:`~deepwell.fit.fit_joint` of the Newtonian model).
+        :func:`~deepwell.fit.fit_joint` with ``settings``).
     progress : callable, optional
         Called with a short text before each fit.
 
@@ -233,18 +235,19 @@ def fit_ladder(observations, settings, scale_radii=(), base=None, progress=None)
     done = {}
     out = []
     ref = settings.effect_switches().reference_radius
+    t0 = time.monotonic()
+    if base is None:
+        say("the shared start: one full fit with the settings' own model")
+        base = fit_joint(observations, settings)
     for rung in rungs:
-        t0 = time.monotonic()
         say(f"model {len(out) + 1} of {len(rungs)}: {rung.label}")
-        if rung.parent is None and base is None:
-            res = fit_joint(observations, _rung_settings(settings, rung))
-        else:
-            parent = done[rung.parent] if rung.parent is not None else base
-            res = refit_rung(observations, settings, rung, parent, ref)
+        parent = done[rung.parent] if rung.parent is not None else base
+        res = refit_rung(observations, settings, rung, parent, ref)
         if rung.scale_radius is not None and ref is None:
             ref = res.model.reference_radius
         done[rung.key] = res
         out.append(LadderFit(rung, res, time.monotonic() - t0))
+        t0 = time.monotonic()
     return out
 
 
