@@ -6,7 +6,7 @@ import os
 from deepwell.tables import Settings, load_settings
 from deepwell.tools.compare import compare
 
-from .options import common, count, positive
+from .options import common, count, dask_group, output_group, positive
 
 __all__ = ["add_compare_parser", "run_compare"]
 
@@ -20,11 +20,7 @@ def add_compare_parser(sub):
         help="fit Newtonian, relativistic and extended-mass models to the same data and say "
              "which the data demand")
     p.add_argument("scenario", help="folder with positions.csv (and velocities.csv)")
-    io = p.add_argument_group("output")
-    io.add_argument("--out", required=True, help="folder to create for the comparison")
-    io.add_argument("--replace", action="store_true",
-                    help="replace an earlier deepwell output in --out (foreign files are kept)")
-    io.add_argument("--no-figures", action="store_true", help="skip the figure")
+    output_group(p, "comparison")
     mod = p.add_argument_group("models")
     mod.add_argument("--settings", help="TOML settings file (priors, bounds, data-set terms; "
                                         "its [effects] are set per model)")
@@ -42,12 +38,7 @@ def add_compare_parser(sub):
     boot.add_argument("--seed", type=int, default=0, help="root seed (default 0)")
     boot.add_argument("--resume", action="store_true",
                       help="continue an interrupted bootstrap from its journal OUT.trials.jsonl")
-    run = p.add_argument_group("computing (Dask)")
-    run.add_argument("--scheduler", metavar="ADDRESS",
-                     help="address of a running Dask scheduler (default: a local cluster)")
-    run.add_argument("--workers", type=count(1), help="local cluster size (default: CPU count)")
-    run.add_argument("--in-process", action="store_true",
-                     help="run the local workers as threads of this process")
+    dask_group(p)
     p.set_defaults(func=run_compare)
     return p
 
