@@ -23,9 +23,11 @@ from deepwell.fit.evidence import (
     nested_log_evidence,
 )
 from deepwell.fit.joint import build_model, fit_joint
+from deepwell.fit.ladder import LadderFit, Rung
 from deepwell.fit.least_squares import bounds, minimise
 from deepwell.fit.result import assemble_result
 from deepwell.fit.stated_prior import EccentricityDisk, Gaussian, StatedPrior, stated_prior
+from deepwell.results.evidence import ladder_evidence
 from deepwell.tables.observations import read_observations
 from deepwell.tables.settings import parse_settings
 from deepwell.tools.simulate import write_scenario
@@ -310,3 +312,21 @@ def test_laplace_and_dynesty_agree_on_the_one_star_nucleus(redshift_fits):
     assert abs(nest.log_evidence - lap.log_evidence) < 3.0 * nest.log_evidence_err + 0.5
 
 
+
+
+def test_ladder_evidence_shares_one_prior_and_gives_the_bayes_factor(redshift_fits):
+    # the ladder's evidences: one reference fit (lowest chi-square) centres every box, so
+    # ln B equals the pairwise Laplace value computed with that reference (and, as above,
+    # about -Delta chi^2 / 2: common practice for models of equal dimension)
+    newton, gr = redshift_fits[1.0]
+    ladder = [LadderFit(Rung("newtonian", "Newtonian", {}), newton, 0.0),
+              LadderFit(Rung("redshift", "+ redshift", {}, parent="newtonian"), gr, 0.0)]
+    ev = ladder_evidence(ladder)
+    assert ev.reference == "redshift" and ev.method == "laplace"
+    ln_b = ev.results["redshift"].log_evidence - ev.results["newtonian"].log_evidence
+    direct = (laplace_evidence(gr).log_evidence
+              - laplace_evidence(newton, reference=gr).log_evidence)
+    assert ln_b == pytest.approx(direct, abs=1e-9)
+    assert ln_b == pytest.approx(-0.5 * (gr.chi2 - newton.chi2), abs=2.0)
+    assert any(line.startswith("mass: uniform on") for line in ev.prior)
+    assert set(ev.table()) == {"newtonian", "redshift"}

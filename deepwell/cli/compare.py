@@ -39,6 +39,13 @@ def add_compare_parser(sub):
     boot.add_argument("--resume", action="store_true",
                       help="continue an interrupted bootstrap from its journal OUT.trials.jsonl")
     dask_group(p)
+    ev = p.add_argument_group("Bayesian evidence")
+    ev.add_argument("--evidence", choices=("laplace", "nested", "none"), default="laplace",
+                    help="log-evidence of each model: Laplace approximation at the best fit "
+                         "(default), nested sampling with dynesty (hours for tens of "
+                         "parameters), or none")
+    ev.add_argument("--evidence-budget", type=positive, metavar="SECONDS",
+                    help="time budget of each nested-sampling run (default: none)")
     p.set_defaults(func=run_compare)
     return p
 
@@ -50,7 +57,8 @@ def run_compare(args):
                      args.bootstrap, args.test, args.seed, args.fitted_errors,
                      figures=not args.no_figures, replace=args.replace, resume=args.resume,
                      scheduler=args.scheduler, workers=args.workers,
-                     in_process=args.in_process, progress=log.info, bar=not args.quiet)
+                     in_process=args.in_process, progress=log.info, bar=not args.quiet,
+                     evidence=args.evidence, evidence_seconds=args.evidence_budget)
     for verdict in result.verdicts:
         log.info("%s", verdict)
     log.info("comparison: %s", os.path.join(args.out, "comparison.md"))

@@ -106,8 +106,14 @@ def comparison_markdown(comparison, figure=None):
         lines += ["", "**No bootstrap was run**: the p-values above are asymptotic at best, "
                   "and the steps without a free parameter have none (`--bootstrap N`)."]
     if comparison.has_evidence:
-        lines += ["", "Evidences depend on the priors of every parameter; see the evidence "
-                  "method's statement of them."]
+        lines += ["", "ln Z is the natural log of the evidence (the likelihood, normalised "
+                  "as a density of the data, averaged over the prior); ln B vs simpler is "
+                  "ln Z of the model minus ln Z of the model of its step (positive favours "
+                  "the model). A Laplace evidence has no statistical error (its "
+                  "approximation error is not estimated); a nested-sampling error is 1 sigma. "
+                  "Evidences depend on the priors of every parameter, so they are stated "
+                  "here:", ""]
+        lines += [f"- {p}" for p in comparison.evidence_prior]
     if comparison.notes:
         lines += ["", "## Notes", ""] + [f"- {n}" for n in comparison.notes]
     if figure:

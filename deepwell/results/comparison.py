@@ -140,6 +140,7 @@ class ModelComparison:
     n_data: int
     reference_radius: float | None
     bootstrap: dict | None = None  # trials per test, seed, error scale, elapsed
+    evidence_prior: tuple = ()  # the stated prior of the evidences, one line per piece
 
     @property
     def has_evidence(self):
@@ -402,16 +403,21 @@ def _notes(ladder, rows, covered):
     return notes
 
 
-def with_evidence(comparison, evidences):
+def with_evidence(comparison, evidences, prior=(), notes=()):
     """The comparison with log-evidences filled in.
 
     Parameters
     ----------
     evidences : dict
         Model key -> (log_evidence, log_evidence_err, method); natural log.
+    prior : sequence of str
+        The stated prior of the evidences, in words (the report prints it).
+    notes : sequence of str
+        Remarks on the evidences, added to the comparison's notes.
     """
     rows = tuple(dataclasses.replace(r, log_evidence=evidences[r.key][0],
                                      log_evidence_err=evidences[r.key][1],
                                      evidence_method=evidences[r.key][2])
                  if r.key in evidences else r for r in comparison.rows)
-    return dataclasses.replace(comparison, rows=rows)
+    return dataclasses.replace(comparison, rows=rows, evidence_prior=tuple(prior),
+                               notes=tuple(comparison.notes) + tuple(notes))

@@ -33,7 +33,8 @@ from deepwell.core.errors import SettingsError
 from deepwell.fit.ladder import fit_ladder, refit_simulated, simulate_measurements
 from deepwell.report.comparison import write_comparison
 from deepwell.report.outdir import discard_output, install_output, prepare_output
-from deepwell.results.comparison import compare_models
+from deepwell.results.comparison import compare_models, with_evidence
+from deepwell.results.evidence import ladder_evidence
 from deepwell.tables import read_observations
 
 from .calibrate import open_client, run_trials, trial_seeds
@@ -168,7 +169,8 @@ def run_bootstrap(ladder, n_trials, tests=None, seed=0, fitted_errors=False, cli
 
 def compare(scenario, out, settings, scale_radii=(), n_bootstrap=0, tests=None, seed=0,
             fitted_errors=False, figures=True, replace=False, resume=False, scheduler=None,
-            workers=None, in_process=False, progress=None, bar=None):
+            workers=None, in_process=False, progress=None, bar=None, evidence="laplace",
+            evidence_seconds=None):
     """Fit the model ladder of ``scenario``, calibrate it, write the report folder ``out``.
 
     Parameters
@@ -193,6 +195,13 @@ def compare(scenario, out, settings, scale_radii=(), n_bootstrap=0, tests=None, 
         Called with a short text at each phase.
     bar : bool, optional
         Show the bootstrap progress bar.
+    evidence : {"laplace", "nested", "none"}
+        How to compute each model's log-evidence
+        (:func:`deepwell.results.evidence.ladder_evidence`): the Laplace
+        approximation (default, costs nothing), nested sampling (hours for tens
+        of parameters) or none.
+    evidence_seconds : float, optional
+        Time budget of each nested-sampling run (s); a run cut short is marked.
 
     Returns
     -------
@@ -214,6 +223,11 @@ def compare(scenario, out, settings, scale_radii=(), n_bootstrap=0, tests=None, 
                                              client, bar, journal_path(out), resume,
                                              str(scenario))
         comparison = compare_models(ladder, deltas, info)
+        if evidence != "none":
+            say(f"evidences of {len(ladder)} models ({evidence})")
+            opts = {"max_seconds": evidence_seconds} if evidence == "nested" else {}
+            ev = ladder_evidence(ladder, evidence, rng=np.random.default_rng(seed), **opts)
+            comparison = with_evidence(comparison, ev.table(), ev.prior, ev.notes)
         say("writing the comparison")
         write_comparison(comparison, tmp, figures=figures)
         install_output(tmp, out, replace=replace)
