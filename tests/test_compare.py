@@ -254,9 +254,12 @@ def test_compare_command_writes_tables_figure_and_keeps_the_folder_on_failure(
     assert np.allclose(models["aic"], models["chi2"] + 2 * models["n_free"], rtol=1e-12)
     assert np.allclose(models["bic"], models["chi2"] + models["n_free"] * np.log(n), rtol=1e-12)
     assert bool(models["f_fixed"][models["key"] == "redshift"][0])
-    assert "log_evidence" not in models.colnames
+    # Laplace evidences by default (deepwell.results.evidence), their prior stated
+    assert set(models["evidence_method"]) == {"laplace"}
+    assert np.all(np.isfinite(models["log_evidence"]))
     text = (out / "comparison.md").read_text(encoding="utf-8")
-    assert "## Verdicts" in text and "comparison.png" in text and "ln Z" not in text
+    assert "## Verdicts" in text and "comparison.png" in text and "ln Z" in text
+    assert "- mass: uniform on [" in text and "ln B vs simpler" in text
     assert (out / "models.tex").read_text(encoding="utf-8").count(r"\\") >= 9
     assert len(Table.read(out / "bootstrap.ecsv")) == 3
     before = snapshot(out)

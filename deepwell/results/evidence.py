@@ -2,22 +2,25 @@
 
 :func:`ladder_evidence` computes ln Z for every fitted model of a ladder
 (:func:`deepwell.fit.ladder.fit_ladder`) with :func:`deepwell.fit.evidence.evidence`.
-All models share one prior for the parameters they share: the boxes of the
-parameters without a natural range are centred on the *reference* model's
-fit (the one with the lowest chi-square) and are ``width`` of its standard
-errors wide on either side, so a Bayes factor between two models depends only
-on the priors of what they do not share (the effect strengths, whose priors are
-their declared ranges).  The Laplace approximation is the default: nested
+All models share one prior for the parameters they share: the box of a
+parameter without a natural range is the smallest one holding every model's
+best fit +- ``width`` of that model's standard errors (a Newtonian fit of
+relativistic data can sit tens of standard errors from the relativistic one),
+and node and pericentre-epoch windows are centred on the *reference* fit (the
+lowest chi-square), so a Bayes factor between two models depends only on the
+priors of what they do not share (the effect strengths, whose priors are their
+declared ranges).  The Laplace approximation is the default: nested
 sampling costs hours on a model of tens of parameters
 (``tests/benchmarks/bench_evidence.py``).
 """
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
 from deepwell.fit.evidence import evidence
-from deepwell.fit.stated_prior import DEFAULT_WIDTH, stated_prior
+from deepwell.fit.stated_prior import DEFAULT_WIDTH, Uniform, stated_prior
 
 __all__ = ["LadderEvidence", "ladder_evidence"]
 
@@ -77,10 +80,10 @@ def ladder_evidence(ladder, method="laplace", width=DEFAULT_WIDTH, rng=None, **o
     if method == "nested":
         options = dict(options, rng=np.random.default_rng() if rng is None else rng)
     results, notes, where = {}, [], {}
-    base = stated_prior(ref, width)
+    union = _union_boxes(fits, width)
     for key, res in fits.items():
         try:
-            prior = stated_prior(res, width, reference=ref)
+            prior = _widened(stated_prior(res, width, reference=ref), union)
             results[key] = evidence(res, method=method, prior=prior, **options)
         except ValueError as exc:
             notes.append(f"no evidence for model {key}: {exc}")
@@ -90,10 +93,49 @@ def ladder_evidence(ladder, method="laplace", width=DEFAULT_WIDTH, rng=None, **o
         notes += [f"model {key}: {n}" for n in results[key].notes
                   if "prior box" in n or "NOT FINISHED" in n]
     lines = [line if len(keys) == len(results) else f"{line} (models {', '.join(keys)})"
-             for line, keys in where.items()] + list(base.notes)
+             for line, keys in where.items()]
+    lines.append(f"the uniform boxes of parameters without a natural range span every model's "
+                 f"best fit +- {width:g} of its standard errors, the same box for every model; "
+                 "the evidence of each model depends on these widths, Bayes factors between "
+                 "models that share them do not (while the posteriors lie well inside)")
     how = ("the Laplace approximation at each best fit" if method == "laplace"
            else "nested sampling (dynesty)")
-    notes.insert(0, f"evidences by {how}; the shared prior boxes are centred on the fit of "
-                 f"model {ref_key}, the one with the lowest chi-square")
+    notes.insert(0, f"evidences by {how}; node and pericentre-epoch windows are centred on "
+                 f"the fit of model {ref_key}, the one with the lowest chi-square")
     return LadderEvidence(results=results, reference=ref_key, prior=tuple(lines),
                           method=method, notes=tuple(notes))
+
+
+def _is_box(prior, piece):
+    return isinstance(piece, Uniform) and piece.text.startswith(
+        f"{prior.names[piece.index]}: uniform on [")
+
+
+def _union_boxes(fits, width):
+    """Per box parameter: the smallest box holding every model's own +- width box."""
+    out = {}
+    for res in fits.values():
+        try:
+            own = stated_prior(res, width)
+        except ValueError:
+            continue
+        for p in own.pieces:
+            if _is_box(own, p):
+                name = own.names[p.index]
+                lo, hi = out.get(name, (p.low, p.high))
+                out[name] = (min(lo, p.low), max(hi, p.high))
+    return out
+
+
+def _widened(prior, union):
+    """``prior`` with its boxes replaced by the shared ones of :func:`_union_boxes`."""
+    pieces = []
+    for p in prior.pieces:
+        name = prior.names[p.index] if hasattr(p, "index") else None
+        if name in union and _is_box(prior, p):
+            lo, hi = union[name]
+            unit = p.text.split("] ", 1)[1] if "] " in p.text else ""
+            p = Uniform(p.index, lo, hi, f"{name}: uniform on [{lo:.8g}, {hi:.8g}] {unit}"
+                        .rstrip())
+        pieces.append(p)
+    return dataclasses.replace(prior, pieces=tuple(pieces), notes=())
