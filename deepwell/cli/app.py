@@ -21,6 +21,7 @@ from deepwell.core.errors import DeepwellError
 from deepwell.core.version import __version__
 
 from .calibrate import add_calibrate_parser
+from .compare import add_compare_parser
 from .demo import add_demo_parser
 from .fit import add_fit_parser
 from .plan import add_plan_parser
@@ -83,6 +84,7 @@ def _parser():
     add_simulate_parser(sub)
     add_plan_parser(sub)
     add_calibrate_parser(sub)
+    add_compare_parser(sub)
     add_demo_parser(sub)
     return parser
 

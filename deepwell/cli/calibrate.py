@@ -11,7 +11,7 @@ from deepwell.tables.settings import load_settings
 from deepwell.tools.calibrate import calibrate, open_client, scenario_description
 from deepwell.tools.journal import journal_path
 
-from .options import common
+from .options import common, dask_group, output_group
 
 __all__ = ["add_calibrate_parser", "run_calibrate"]
 
@@ -29,11 +29,7 @@ def add_calibrate_parser(subparsers):
                                     "description file")
     p.add_argument("--trials", type=int, default=100, help="simulated data sets (default 100)")
     p.add_argument("--seed", type=int, default=0, help="root seed of the trials (default 0)")
-    io = p.add_argument_group("output")
-    io.add_argument("--out", required=True, help="folder to create for the calibration")
-    io.add_argument("--replace", action="store_true",
-                    help="replace an earlier deepwell output in --out (foreign files are kept)")
-    io.add_argument("--no-figures", action="store_true", help="skip the figure")
+    io = output_group(p, "calibration")
     io.add_argument("--resume", action="store_true",
                     help="continue an interrupted run from its journal OUT.trials.jsonl")
     mod = p.add_argument_group("fit model")
@@ -49,13 +45,7 @@ def add_calibrate_parser(subparsers):
     mod.add_argument("--warmup", type=int, help="warm-up transitions per NUTS chain")
     mod.add_argument("--chains", type=int, help="independent chains or ensembles per trial")
     mod.add_argument("--max-time", type=float, help="sampling time limit per trial, s")
-    run = p.add_argument_group("computing (Dask)")
-    run.add_argument("--scheduler", metavar="ADDRESS",
-                     help="address of a running Dask scheduler (default: a local cluster)")
-    run.add_argument("--workers", type=int, help="local cluster size (default: CPU count)")
-    run.add_argument("--in-process", action="store_true",
-                     help="run the local workers as threads of this process (quick to "
-                          "start; for small runs)")
+    dask_group(p)
     p.set_defaults(func=run_calibrate)
     return p
 

@@ -22,6 +22,7 @@ relativistic redshift scaled by f.  Without effects the model is the plain
 Keplerian one above, at the same cost as before.
 """
 
+import copy
 from dataclasses import dataclass
 
 import numpy as np
@@ -189,6 +190,30 @@ class JointModel:
             args["integrated"] = [self.integrated[self.stars.index(s)] for s in changes["stars"]]
         args.update(changes)
         return JointModel(**args)
+
+    def with_measurements(self, ra, dec, vr=None):
+        """The same model with other measured values at the same rows (for simulated data).
+
+        Parameters
+        ----------
+        ra, dec : ndarray
+            Positions (mas), one per position row of the model (``self.pos``).
+        vr : ndarray, optional
+            Radial velocities (km/s), one per velocity row (``self.vel``).
+
+        Returns
+        -------
+        JointModel
+            A shallow copy sharing epochs, errors and set-up; only the
+            measured values differ (the observation tables are not rebuilt).
+        """
+        out = copy.copy(self)
+        out.pos = copy.copy(self.pos)
+        out.pos.ra, out.pos.dec = np.asarray(ra, float), np.asarray(dec, float)
+        if self.vel is not None and vr is not None:
+            out.vel = copy.copy(self.vel)
+            out.vel.vr = np.asarray(vr, float)
+        return out
 
     def for_stars(self, stars):
         """The same model restricted to some stars (priors on other stars dropped)."""

@@ -8,7 +8,8 @@ quotes them; every threshold is defined here only.
 import numpy as np
 
 __all__ = ["POOR_COVERAGE", "POOR_PERIOD_ERROR", "GOOD_RPERI_ERROR", "POOR_REL_SIGMA",
-           "POOR_REDUCED_CHI2", "DETECTABLE_DCHI2", "phase_coverage"]
+           "POOR_REDUCED_CHI2", "DETECTABLE_DCHI2", "PERICENTRE_ANGLE", "PERICENTRE_EPOCHS",
+           "phase_coverage", "pericentre_epochs_count"]
 
 #: An orbit whose data span less than this fraction of it (in mean anomaly) is
 #: a partial arc: linear errors may understate the real uncertainty (common practice).
@@ -26,6 +27,36 @@ POOR_REDUCED_CHI2 = 2.0
 #: elements (deepwell.results.detectability), is at least this: about 3 sigma for
 #: one added parameter (chi-square with 1 dof, common practice).
 DETECTABLE_DCHI2 = 9.0
+
+#: Half-width (deg of true anomaly) of the pericentre passage, where the redshift and the
+#: precession of an eccentric orbit build up (common practice: r < a(1 - e^2) there).
+PERICENTRE_ANGLE = 90.0
+#: A pericentre passage counts as covered with at least this many epochs inside it.
+PERICENTRE_EPOCHS = 3
+
+
+def pericentre_epochs_count(model, vec, k):
+    """Epochs of star k (positions and velocities) in a pericentre passage.
+
+    The passage is the part of the orbit with true anomaly |nu| < PERICENTRE_ANGLE,
+    i.e. |t - t_peri - n P| < P M_90 / (2 pi), M_90 the mean anomaly at nu = 90 deg:
+    E = 2 arctan(sqrt((1 - e)/(1 + e)) tan(nu/2)), M = E - e sin E (Kepler's equation).
+
+    Returns
+    -------
+    int
+        Number of distinct epochs (yr, rounded to 1e-6) inside a passage.
+    """
+    el = model.layout.elements(vec)
+    e, period, t_p = float(el["e"][k]), float(el["period"][k]), float(el["t_peri"][k])
+    half = np.radians(PERICENTRE_ANGLE) / 2.0
+    ecc_anom = 2.0 * np.arctan(np.sqrt((1.0 - e) / (1.0 + e)) * np.tan(half))
+    window = period * (ecc_anom - e * np.sin(ecc_anom)) / (2.0 * np.pi)
+    t = model.pos.t[model.pos.star == k]
+    if model.vel is not None:
+        t = np.concatenate([t, model.vel.t[model.vel.star == k]])
+    phase = np.mod(t - t_p + 0.5 * period, period) - 0.5 * period
+    return int(np.unique(np.round(t[np.abs(phase) < window], 6)).size)
 
 
 def phase_coverage(model, vec, k):

@@ -76,6 +76,7 @@ from deepwell.fit.sampling import SamplerOptions, sample_posterior
 from deepwell.fit.sampling.ensemble import NoProgress
 from deepwell.model.kernels.kepler import solve_kepler
 from deepwell.model.kernels.post_newtonian import pn_track
+from deepwell.results.proportions import clopper_pearson
 from deepwell.tables.observations import Observations
 from deepwell.tables.settings import Settings, SharedSetting
 
@@ -127,23 +128,6 @@ def acceptance_band(n, p, level=BAND_LEVEL):
     lo = int(np.searchsorted(cdf, tail * (1 - 1e-13), side="left"))
     hi = int(np.searchsorted(cdf, (1.0 - tail) * (1 - 1e-13), side="left"))
     return lo, min(hi, int(n))
-
-
-def clopper_pearson(k, n, level=BAND_LEVEL):
-    """Exact (Clopper & Pearson 1934) interval on a proportion from k of n.
-
-    Notes
-    -----
-    lower = B^-1(alpha/2; k, n - k + 1), upper = B^-1(1 - alpha/2; k + 1, n - k),
-    B^-1 the inverse regularised incomplete beta function, alpha = 1 - level;
-    lower = 0 for k = 0 and upper = 1 for k = n.
-    """
-    if n < 1:
-        return float("nan"), float("nan")
-    alpha = 1.0 - level
-    lo = 0.0 if k == 0 else float(special.betaincinv(k, n - k + 1, alpha / 2))
-    hi = 1.0 if k == n else float(special.betaincinv(k + 1, n - k, 1 - alpha / 2))
-    return lo, hi
 
 
 # ------------------------------------------------------------------ one trial
@@ -334,14 +318,17 @@ def _progress(enabled, total):
 
 
 def run_trials(client, spec, n_trials, progress=None, in_flight=None, done=None,
-               on_record=None):
+               on_record=None, task=None):
     """Run trials 0..n_trials-1 on ``client``; return the records in trial order.
 
     At most ``in_flight`` trials (default 4 per worker) are submitted at once.
     A trial whose worker dies is recorded as failed with the Dask error.
     ``done`` maps trial index -> record of trials already run (they are not
     run again); ``on_record(record)`` is called as each new trial finishes.
+    ``task(index, spec) -> record`` runs one trial (default :func:`run_trial`;
+    it must never raise and its record has ``trial`` and ``status``).
     """
+    task = task or run_trial
     from distributed import as_completed
 
     try:
@@ -359,7 +346,7 @@ def run_trials(client, spec, n_trials, progress=None, in_flight=None, done=None,
     futures = {}
 
     def submit(i):
-        fut = client.submit(run_trial, i, spec, pure=False, key=f"deepwell-trial-{run_id}-{i}")
+        fut = client.submit(task, i, spec, pure=False, key=f"deepwell-trial-{run_id}-{i}")
         futures[fut.key] = i
         return fut
 
