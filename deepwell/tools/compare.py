@@ -148,10 +148,12 @@ def run_bootstrap(ladder, n_trials, tests=None, seed=0, fitted_errors=False, cli
     t0 = time.monotonic()
     if client is None:
         with open_client() as own:
-            records = run_trials(own, own.scatter(spec, broadcast=True), total, progress,
+            shared = own.scatter(spec, broadcast=True, hash=False)  # a fresh key each run
+            records = run_trials(own, shared, total, progress,
                                  task=bootstrap_trial, **kw)
     else:
-        records = run_trials(client, client.scatter(spec, broadcast=True), total, progress,
+        shared = client.scatter(spec, broadcast=True, hash=False)  # a fresh key each run
+        records = run_trials(client, shared, total, progress,
                              task=bootstrap_trial, **kw)
     out = {}
     for j, k in enumerate(keys):
