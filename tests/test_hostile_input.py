@@ -307,3 +307,31 @@ def test_redshift_of_a_trial_orbit_faster_than_light_is_nan_without_a_warning():
     expected = c * (1.0 / np.sqrt(1 - 0.25) * 1.5 / np.sqrt(1 - r_s_au / 1e3) - 1.0)
     assert rv[0] == pytest.approx(expected, rel=1e-9)
     assert np.isnan(rv[1])
+
+
+def test_progress_of_a_run_to_convergence_promises_no_percentage(caplog):
+    # A run to a stop rule may end long before its step bound: the lines give the bound
+    # as "at most", never a share of it (common practice: no progress claim a run won't keep).
+    bar = make_progress(True, total=20_300, desc="chain 1", open_ended=True)
+    with caplog.at_level(logging.INFO, logger="deepwell"):
+        for _ in range(2_100):
+            bar.update(1)
+        bar.close()
+    lines = [r.getMessage() for r in caplog.records]
+    assert len(lines) == 3  # 2100 steps / (5% of 20300 = 1015 steps), then the close
+    assert lines[0].startswith("chain 1: 1015 steps (at most 20300; stops when converged)")
+    assert all("%" not in line for line in lines)
+
+
+def test_progress_under_a_time_limit_counts_time_against_the_limit(caplog, monkeypatch):
+    now = [0.0]
+    monkeypatch.setattr("deepwell.fit.sampling.progress.time.monotonic", lambda: now[0])
+    bar = make_progress(True, total=20_300, desc="chain 0", max_time=100.0)
+    with caplog.at_level(logging.INFO, logger="deepwell"):
+        for _ in range(40):  # one second per step on the fake clock
+            now[0] += 1.0
+            bar.update(1)
+    lines = [r.getMessage() for r in caplog.records]
+    assert lines[0].startswith("chain 0: 5 steps, 5 s of the 100 s limit (5%)")
+    assert len(lines) == 8  # 40 s / (5% of 100 s)
+    assert "20300" not in " ".join(lines)

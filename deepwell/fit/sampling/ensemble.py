@@ -15,8 +15,6 @@ checkpoint, so a resumed run continues the uninterrupted one bit for bit.
 """
 
 import logging
-import math
-import sys
 import time
 from dataclasses import dataclass
 
@@ -24,91 +22,12 @@ import emcee
 import numpy as np
 
 from .backend import Checkpoint, CheckpointError, load_checkpoint, restore_rng, save_checkpoint
+from .progress import LineProgress, NoProgress, make_progress
 
 __all__ = ["EnsembleRun", "default_moves", "run_ensemble", "NoProgress", "LineProgress",
            "make_progress"]
 
 log = logging.getLogger("deepwell")
-
-
-class NoProgress:
-    """Do-nothing stand-in for a tqdm bar (same methods, no output)."""
-
-    def update(self, n=1):
-        pass
-
-    def set_postfix_str(self, text, refresh=True):
-        pass
-
-    def close(self):
-        pass
-
-
-class LineProgress:
-    """Progress as plain log lines (logger ``deepwell``): one line every ``every`` of the run.
-
-    Used when stderr is not a terminal (a log file, a pipe), where a tqdm bar
-    would write a carriage return and a redrawn bar at every step.
-
-    Parameters
-    ----------
-    total : int
-        Steps of the whole run.
-    initial : int
-        Steps already done (a resumed run).
-    desc : str
-        Name of the chain or ensemble, starting every line.
-    every : float
-        Fraction of ``total`` between two lines (default 5%).
-    """
-
-    def __init__(self, total, initial=0, desc="sampling", every=0.05):
-        self.total, self.n, self.desc = max(int(total), 1), int(initial), desc
-        self.stride = max(1, math.ceil(every * self.total))
-        self.postfix = ""
-        self.shown = self.n
-        self.t0 = time.monotonic()
-
-    def _line(self):
-        extra = f", {self.postfix}" if self.postfix else ""
-        log.info("%s: %d/%d steps (%.0f%%), %.0f s%s", self.desc, self.n, self.total,
-                 100.0 * self.n / self.total, time.monotonic() - self.t0, extra)
-        self.shown = self.n
-
-    def update(self, n=1):
-        before = self.n // self.stride
-        self.n += n
-        if self.n // self.stride > before:
-            self._line()
-
-    def set_postfix_str(self, text, refresh=True):
-        self.postfix = text
-
-    def close(self):
-        if self.n != self.shown:
-            self._line()
-
-
-def make_progress(enabled, total, initial=0, desc="sampling", position=0):
-    """Progress display of one chain or ensemble.
-
-    A tqdm bar when ``enabled`` and stderr is a terminal; :class:`LineProgress`
-    (a log line every 5%) when stderr is a file or pipe; :class:`NoProgress`
-    when not ``enabled``.  An object with the same interface passed as
-    ``enabled`` is used as it is.
-    """
-    if not enabled:
-        return NoProgress()
-    if not isinstance(enabled, bool):
-        return enabled  # an object with the same interface, passed in
-    if not (hasattr(sys.stderr, "isatty") and sys.stderr.isatty()):
-        return LineProgress(total, initial=initial, desc=desc)
-    try:
-        from tqdm.auto import tqdm
-    except ImportError:  # pragma: no cover - tqdm is a dependency
-        return NoProgress()
-    return tqdm(total=total, initial=initial, desc=desc, position=position, leave=True,
-                unit="step", dynamic_ncols=True)
 
 
 class _GeneratorAdapter:
@@ -286,7 +205,8 @@ def run_ensemble(log_prob, p0, rng, n_steps=None, *, moves=None, thin=1, checkpo
     resumed_at = step
 
     target = n_steps if n_steps is not None else max_steps
-    bar = make_progress(progress, total=target, initial=step, desc=desc, position=position)
+    bar = make_progress(progress, total=target, initial=step, desc=desc, position=position,
+                        max_time=max_time, open_ended=n_steps is None and stop_rule is not None)
     buf_c, buf_l = [], []
     t0 = time.monotonic()
     state = emcee.State(coords, log_prob=lp)

@@ -29,9 +29,9 @@ import numpy as np
 
 from .backend import CheckpointError, check_state, load_state, restore_rng, save_state
 from .coordinates import COORDS_VERSION, STATE_ARC
-from .ensemble import make_progress
 from .gradient import WhitenedTarget
 from .nuts import DualAveraging, initial_step_size, nuts_step
+from .progress import make_progress
 
 __all__ = ["ChainRun", "run_chain", "adapted_cov"]
 
@@ -205,7 +205,8 @@ def run_chain(target, centre, cov, theta0, rng, n_warmup=300, n_draws=None, *,
 
     target_draws = n_draws if n_draws is not None else max_draws
     bar = make_progress(progress, total=n_warmup + target_draws, initial=it, desc=desc,
-                        position=position)
+                        position=position, max_time=max_time,
+                        open_ended=n_draws is None and stop_rule is not None)
     t0 = time.monotonic()
     reason = "n_steps" if n_draws is not None else "max_steps"
     n_div = sum(s[2] for s in stats)
