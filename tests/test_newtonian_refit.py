@@ -184,6 +184,8 @@ def test_analyse_carries_the_refit_only_for_relativistic_fits(obs, fit):
     # chi-square of the refit recomputed from its own whitened residuals (definition)
     direct = float(np.sum(refit.result.model.data_residuals(refit.result.internal) ** 2))
     assert refit.chi2_newtonian == pytest.approx(direct, rel=1e-10)
+    # the stars' parts of the delta chi-square add up to it (each datum belongs to one star)
+    assert sum(refit.star_delta_chi2.values()) == pytest.approx(refit.delta_chi2, rel=1e-9)
     assert refit.result.model.effects.describe() == newt_fit.model.effects.describe()
     # started at the relativistic solution, the refit reaches the minimum that a Newtonian
     # fit from its own start search finds (0.01: a hundredth of one unit of chi-square)

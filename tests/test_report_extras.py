@@ -405,8 +405,10 @@ def test_effect_figure_captions_say_held_or_fitted(obs, rel_fit, rel_sizes, rel_
     fig = build()
     f, s = free_fit.value("f"), free_fit.sigma("f")
     assert s > 0 and f"fitted f = {f:.3g} ± {s:.2g}" in caption
+    star = stem.split("_", 1)[1]
     assert (f"refitted to the same data (Δχ² = {free_newton.delta_chi2:.1f} for 1 fewer "
-            "parameter)") in caption
+            f"parameter, all data; {free_newton.star_delta_chi2[star]:.1f} from this "
+            "star's)") in caption
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert f"model, fitted f = {f:.3g}" in labels
 

@@ -64,6 +64,9 @@ class NewtonianRefit:
         Fitted parameters of each.
     seconds : float
         Wall time of the refit (s).
+    star_delta_chi2 : dict
+        Star -> its own data's part of the Δχ² (the stars' parts add up to
+        the Δχ² of the data).
     """
 
     result: object
@@ -73,6 +76,7 @@ class NewtonianRefit:
     n_free_full: int
     n_free_newtonian: int
     seconds: float
+    star_delta_chi2: dict = dataclasses.field(default_factory=dict)
 
     @property
     def delta_chi2(self):
@@ -94,7 +98,8 @@ class NewtonianRefit:
                 "chi2_newtonian": self.chi2_newtonian, "delta_chi2": self.delta_chi2,
                 "n_free_full": self.n_free_full, "n_free_newtonian": self.n_free_newtonian,
                 "fewer_parameters": self.fewer_parameters, "converged": self.converged,
-                "seconds": self.seconds}
+                "seconds": self.seconds,
+                "star_delta_chi2": {s: float(v) for s, v in self.star_delta_chi2.items()}}
 
 
 def newtonian_refit(result):
@@ -128,4 +133,7 @@ def newtonian_refit(result):
                       reference_radius=result.model.reference_radius)
     return NewtonianRefit(result=newt, switched_off=off, chi2_full=float(result.chi2),
                           chi2_newtonian=float(newt.chi2), n_free_full=int(result.n_free),
-                          n_free_newtonian=int(newt.n_free), seconds=time.monotonic() - t0)
+                          n_free_newtonian=int(newt.n_free), seconds=time.monotonic() - t0,
+                          star_delta_chi2={s: float(newt.star_chi2[newt.stars.index(s)]
+                                                    - result.star_chi2[k])
+                                           for k, s in enumerate(result.stars)})

@@ -162,7 +162,8 @@ def precession_curves(result, star, newtonian, n=1500):
         ``panels``: one dict per error class of the star's data sets
         (:func:`.marks.error_classes`, most precise first) with ``datasets``,
         ``rows`` (mask over the data), ``relative_to`` ("frame" when most of
-        its rows are) and its own ``model``, ``sp1``, ``sp0``, ``spfit``;
+        its rows are), its own ``model``, ``sp1``, ``sp0``, ``spfit`` and
+        ``ylim`` (east and north axis limits, mas, around its data);
         ``f_sp_fit``, ``f_sp_free``, ``f_sp_sigma``.
     """
     m, vec = result.model, result.internal
@@ -195,14 +196,30 @@ def precession_curves(result, star, newtonian, n=1500):
         rows = np.isin(ds, group)
         in_frame = frame_row[rows].mean() > 0.5
         add = shift if in_frame else 0.0
+        curves = {key: None if c is None else c + add for key, c in
+                  (("model", model), ("sp1", sp1), ("sp0", sp0), ("spfit", spfit))}
         panels.append({"datasets": group, "rows": rows,
-                       "relative_to": "frame" if in_frame else "mass",
-                       **{key: None if c is None else c + add for key, c in
-                          (("model", model), ("sp1", sp1), ("sp0", sp0), ("spfit", spfit))}})
+                       "relative_to": "frame" if in_frame else "mass", **curves,
+                       "ylim": _panel_limits(t, curves, t_obs[rows], resid[:, rows],
+                                             err[:, rows])})
     return {"t": t, "model": model, "sp1": sp1, "sp0": sp0, "spfit": spfit,
             "frame_shift": shift, "t_data": t_obs, "resid_data": resid, "err_data": err,
             "dataset": ds, "frame_row": frame_row, "panels": panels,
             "f_sp_fit": f_fit, "f_sp_free": free, "f_sp_sigma": f_sig}
+
+
+def _panel_limits(t, curves, t_data, resid, err):
+    """y limits (mas) of one class's east and north panels: its data with their errors and
+    the curves over the span of its data (10% margin), so precise data fill their panel."""
+    span = (t >= t_data.min() - 0.05 * np.ptp(t)) & (t <= t_data.max() + 0.05 * np.ptp(t))
+    out = []
+    for j in (0, 1):
+        values = [resid[j] - err[j], resid[j] + err[j], [0.0]]
+        values += [c[j][span] for c in curves.values() if c is not None]
+        lo, hi = float(min(np.min(v) for v in values)), float(max(np.max(v) for v in values))
+        pad = 0.1 * max(hi - lo, 1e-6)
+        out.append((lo - pad, hi + pad))
+    return out
 
 
 def _strength(result, name):
@@ -229,18 +246,20 @@ def strength_text(result, name, symbol):
     return f"{symbol} held at {value:.3g}"
 
 
-def newtonian_text(newtonian):
+def newtonian_text(newtonian, star=None):
     """Caption words on the comparison model: its Δχ² and how many parameters it lacks.
 
     "relative to the Newtonian model refitted to the same data (Δχ² = 41.3 for
-    2 fewer parameters)"; "for the same number of parameters" when the
-    strengths are held.
+    2 fewer parameters, all data; 30.2 from this star's)"; "for the same number
+    of free parameters" when the strengths are held.
     """
     k = newtonian.fewer_parameters
     dof = (f"for {k} fewer parameter{'s' if k != 1 else ''}" if k > 0 else
            "for the same number of free parameters")
+    own = newtonian.star_delta_chi2.get(star)
     return ("relative to the Newtonian model refitted to the same data (Δχ² = "
             f"{newtonian.delta_chi2:.1f} {dof}"
+            + ("" if own is None else f", all data; {own:.1f} from this star's")
             + ("" if newtonian.converged else "; that refit did NOT converge") + ")")
 
 
@@ -304,11 +323,11 @@ def precession_figure(star, d):
     so data sets whose errors differ by more than :data:`.marks.ERROR_RATIO`
     never share an axis.
     """
-    labels = (r"$\Delta\alpha\cos\delta - $Newton (mas)", r"$\Delta\delta - $Newton (mas)")
+    labels = (r"$\Delta\alpha\cos\delta$ res. (mas)", r"$\Delta\delta$ res. (mas)")
     panels = d["panels"]
     styles = _data_styles(d["dataset"])
     rows = 2 * len(panels)
-    height = max(4.8, 1.15 * rows + 0.8)
+    height = max(4.8, 1.35 * rows + 0.8)
     with matplotlib.rc_context(STYLE):
         fig = new_figure((7.8, height))
         grid = fig.add_gridspec(rows, 1, left=0.1, right=0.64, bottom=0.5 / height,
@@ -325,6 +344,7 @@ def precession_figure(star, d):
                       d["dataset"][r], styles)
                 ax.set_ylabel(labels[j])
                 ax.set_xlim(d["t"][0], d["t"][-1])
+                ax.set_ylim(*p["ylim"][j])
                 if len(panels) > 1:
                     ax.text(0.01, 0.95, ", ".join(p["datasets"]), transform=ax.transAxes,
                             ha="left", va="top", fontsize=6.0,
@@ -364,9 +384,9 @@ def effect_figure_jobs(result, sizes, newtonian):
     jobs = []
     if newtonian is None:
         return jobs
-    against = newtonian_text(newtonian)
     for k, star in enumerate(m.stars):
         s = sizes[star]
+        against = newtonian_text(newtonian, star)
         if "f" in m.layout.extra and s["detectable_redshift"]:
             jobs.append((effect_stem("redshift", star),
                          lambda st=star: redshift_figure(st, redshift_curves(
