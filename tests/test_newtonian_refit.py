@@ -20,7 +20,7 @@ from deepwell.model.epochs import model_at_epochs, star_vector
 from deepwell.model.kernels.orbit import elements_from_state, gm_angular
 from deepwell.model.kernels.post_newtonian import pn_track
 from deepwell.model.layout import internal_star_values
-from deepwell.report.figures.effects import precession_curves, redshift_curves
+from deepwell.report.figures.effects import precession_curves, precession_figure, redshift_curves
 from deepwell.results import analyse
 from deepwell.results.effect_sizes import star_effect_sizes
 from deepwell.results.newtonian import newtonian_refit, relativistic_effects
@@ -190,3 +190,55 @@ def test_analyse_carries_the_refit_only_for_relativistic_fits(obs, fit):
     # started at the relativistic solution, the refit reaches the minimum that a Newtonian
     # fit from its own start search finds (0.01: a hundredth of one unit of chi-square)
     assert refit.chi2_newtonian == pytest.approx(newt_fit.chi2, abs=0.01)
+
+
+FRINGE = """
+[[campaigns]]
+dataset = "fringe"
+kind = "positions"
+relative_to = "mass"
+start = 2016.0
+end = 2022.0
+cadence = 1.0
+error = [0.04, 0.06]
+"""
+
+
+@pytest.fixture(scope="module")
+def mixed_fit(tmp_path_factory):
+    """The small scenario plus 0.05-mas positions measured from the mass (invented data)."""
+    root = tmp_path_factory.mktemp("fringe")
+    (root / "d.toml").write_text(SMALL_SCENARIO.format(seed=6161) + FRINGE)
+    return fit_joint(read_observations(write_scenario(root / "d.toml", root / "data")),
+                     Settings())
+
+
+def test_precession_residuals_of_errors_ten_times_apart_never_share_an_axis(mixed_fit):
+    """0.05-mas (fringe) and 0.6-0.9-mas (imager) positions: one pair of panels each, since
+    classes more than a factor 10 apart in median error get their own axes (common
+    practice: one residual panel per instrument class); each panel keeps its own frame
+    convention and its y range holds its own data with their error bars."""
+    refit = newtonian_refit(mixed_fit)
+    d = precession_curves(mixed_fit, STAR, refit)
+    assert [p["datasets"] for p in d["panels"]] == [["fringe"], ["imager"]]
+    median = {ds: float(np.median(np.minimum(*d["err_data"])[d["dataset"] == ds]))
+              for ds in ("fringe", "imager")}
+    assert median["imager"] > 10.0 * median["fringe"]  # numpy median, independent of marks
+    fringe, imager = d["panels"]
+    assert (fringe["relative_to"], imager["relative_to"]) == ("mass", "frame")
+    assert np.array_equal(d["frame_row"][fringe["rows"]], np.zeros(fringe["rows"].sum(), bool))
+    np.testing.assert_allclose(imager["model"] - fringe["model"], d["frame_shift"], atol=1e-12)
+    for p in d["panels"]:
+        r = p["rows"]
+        for j in (0, 1):
+            lo, hi = p["ylim"][j]
+            assert lo <= np.min(d["resid_data"][j][r] - d["err_data"][j][r])
+            assert hi >= np.max(d["resid_data"][j][r] + d["err_data"][j][r])
+    # the fringe axes span less than a tenth of the imager axes: the precise data stay visible
+    for j in (0, 1):
+        assert np.ptp(fringe["ylim"][j]) < 0.1 * np.ptp(imager["ylim"][j])
+    fig = precession_figure(STAR, d)
+    axes = [ax for ax in fig.axes if ax.containers]
+    assert len(axes) == 4
+    shown = [{c.get_label().removeprefix("data: ") for c in ax.containers} for ax in axes]
+    assert shown == [{"fringe"}, {"fringe"}, {"imager"}, {"imager"}]
