@@ -34,6 +34,7 @@ from deepwell.report.writer import compactness_choice, write_report
 from deepwell.results import analyse
 from deepwell.results.effect_sizes import star_effect_sizes
 from deepwell.results.enclosed import enclosed_mass_profile
+from deepwell.results.newtonian import newtonian_refit
 from deepwell.tables.effects import effects_from_args
 from deepwell.tables.observations import read_observations
 from deepwell.tables.settings import Settings
@@ -64,6 +65,11 @@ def rel_fit(obs):
 @pytest.fixture(scope="module")
 def rel_sizes(rel_fit):
     return star_effect_sizes(rel_fit)
+
+
+@pytest.fixture(scope="module")
+def rel_newton(rel_fit):
+    return newtonian_refit(rel_fit)
 
 
 @pytest.fixture(scope="module")
@@ -249,8 +255,16 @@ def test_effect_table_equals_the_effect_summary(rel_fit, rel_sizes, rel_report):
     assert str(t["precession"].unit) == "arcmin"
 
 
-def test_summary_carries_effects_block_and_sizes(rel_fit, rel_sizes, rel_report):
+def test_summary_carries_effects_block_and_sizes(rel_fit, rel_sizes, rel_newton, rel_report):
     data = _summary(rel_report)
+    # the Newtonian refit's delta chi-square, recomputed from the two fits' own residuals
+    block = data["newtonian_refit"]
+    newt = rel_newton.result
+    direct = float(np.sum(newt.model.data_residuals(newt.internal) ** 2)
+                   - np.sum(rel_fit.model.data_residuals(rel_fit.internal) ** 2))
+    assert block["delta_chi2"] == pytest.approx(direct, rel=1e-9, abs=1e-9)
+    assert block["fewer_parameters"] == 0 and block["switched_off"] == list(
+        rel_newton.switched_off)
     assert data["parameters"]["f"]["unit"] == "" and data["parameters"]["f_sp"]["unit"] == ""
     fx = data["effects"]
     assert fx["modelled"] == rel_fit.model.effects.describe()
@@ -266,40 +280,49 @@ def test_summary_carries_effects_block_and_sizes(rel_fit, rel_sizes, rel_report)
     text = (rel_report / "report.md").read_text()
     assert "## Relativistic effects" in text and rel_fit.model.effects.describe() in text
     assert "No relativistic effects were modelled" not in text
+    assert f"Δχ² = {block['delta_chi2']:.1f} with the same number of free parameters" in text
     assert "OSCULATING" in text  # the model's own note on integrated stars
 
 
 def test_redshift_curve_at_pericentre_equals_the_effect_size(obs):
     """Redshift only (no Romer delay, no precession): at pericentre the f = 1 model minus
-    the Newtonian orbit is the redshift excess of effect_summary (computed there from the
-    analytic pericentre speed, physics.md sect. 5); f = 0 is the Newtonian orbit."""
+    the f = 0 model (both against the refitted Newtonian model, which cancels) is the
+    redshift excess of effect_summary (computed there from the analytic pericentre speed,
+    physics.md sect. 5); the curve as drawn (f held at 1) is the f = 1 curve."""
     fit = fit_joint(obs, effects_from_args(Settings(), romer=False, precession=False))
     sizes = star_effect_sizes(fit)
+    newt = newtonian_refit(fit)
+    assert newt.switched_off == ("redshift (exact)",)
     for star in ("t-1", "t-3"):
-        d = redshift_curves(fit, star, sizes[star])
-        at_peri = np.interp(d["t_peri"], d["t"], d["f1"])
+        d = redshift_curves(fit, star, newt, sizes[star])
+        at_peri = np.interp(d["t_peri"], d["t"], d["f1"] - d["f0"])
         assert at_peri == pytest.approx(sizes[star]["redshift_excess_kms"], rel=0.10)
-        assert np.max(np.abs(d["f0"])) < 1e-6  # km/s: f = 0 is exactly Newtonian
+        assert np.array_equal(d["model"], d["f1"]) and d["ffit"] is None
 
 
-def test_redshift_difference_of_f1_and_f0_with_all_effects(rel_fit, rel_sizes):
-    d = redshift_curves(rel_fit, "t-1", rel_sizes["t-1"])
+def test_redshift_difference_of_f1_and_f0_with_all_effects(rel_fit, rel_sizes, rel_newton):
+    d = redshift_curves(rel_fit, "t-1", rel_newton, rel_sizes["t-1"])
     diff = np.interp(d["t_peri"], d["t"], d["f1"] - d["f0"])
     assert diff == pytest.approx(rel_sizes["t-1"]["redshift_excess_kms"], rel=0.10)
 
 
-def test_precession_off_leaves_only_the_romer_shift(rel_fit, rel_sizes):
-    """With f_SP = 0 the integrated orbit is Keplerian: what remains against the
-    Newtonian orbit is the Romer delay, whose largest sky shift over an orbit
-    effect_summary computes separately (10%: the data span samples the orbit)."""
-    d = precession_curves(rel_fit, "t-1")
-    shift0 = np.hypot(*d["sp0"])
-    assert shift0.max() == pytest.approx(rel_sizes["t-1"]["romer_sky_mas"], rel=0.10)
+def test_precession_on_minus_off_exceeds_a_tenth_of_the_precession(rel_fit, rel_sizes,
+                                                                    rel_newton):
+    """f_SP = 1 minus f_SP = 0 (the comparison model cancels) moves the track by a sizeable
+    part of the per-orbit sky precession of effect_summary (physics.md sect. 6; the data
+    span covers about two orbits of t-1, so a tenth is a loose floor, common practice)."""
+    d = precession_curves(rel_fit, "t-1", rel_newton)
     assert np.hypot(*(d["sp1"] - d["sp0"])).max() > 0.1 * rel_sizes["t-1"]["precession_mas"]
+    # frame-relative imaging: the drawn curves carry the two fits' frame difference
+    (panel,) = d["panels"]
+    assert panel["relative_to"] == "frame"
+    np.testing.assert_allclose(panel["model"] - d["model"], d["frame_shift"], atol=1e-12)
 
 
-def test_effect_figures_only_for_stars_above_their_errors(rel_fit, rel_sizes, tmp_path):
-    jobs = effect_figure_jobs(rel_fit, rel_sizes)
+def test_effect_figures_only_for_stars_above_their_errors(rel_fit, rel_sizes, rel_newton,
+                                                          tmp_path):
+    assert effect_figure_jobs(rel_fit, rel_sizes, None) == []  # no comparison model
+    jobs = effect_figure_jobs(rel_fit, rel_sizes, rel_newton)
     expected = {f"redshift_{s}" for s, d in rel_sizes.items() if d["detectable_redshift"]}
     expected |= {f"precession_{s}" for s, d in rel_sizes.items() if d["detectable_precession"]}
     assert {stem for stem, _, _ in jobs} == expected
@@ -360,11 +383,11 @@ def test_star_tables_say_which_elements_are_osculating_and_give_the_observed_per
     assert all(f"{s}$^\\dagger$" in tex for s in integrated)
 
 
-def test_effect_figure_captions_say_held_or_fitted(obs, rel_fit, rel_sizes):
+def test_effect_figure_captions_say_held_or_fitted(obs, rel_fit, rel_sizes, rel_newton):
     # A caption (figures carry no title) must never call a held parameter "fitted" (issue of
     # over-claiming labels); a fitted strength is quoted with its error and its own model
     # curve is drawn.
-    jobs = effect_figure_jobs(rel_fit, rel_sizes)
+    jobs = effect_figure_jobs(rel_fit, rel_sizes, rel_newton)
     assert jobs
     for _, build, caption in jobs:
         fig = build()
@@ -375,12 +398,17 @@ def test_effect_figure_captions_say_held_or_fitted(obs, rel_fit, rel_sizes):
                   for t in ax.get_legend().get_texts()]
         assert labels and not any("fitted" in t for t in labels)
     free_fit = fit_joint(obs, effects_from_args(Settings(), fit_f=True))
-    stem, build, caption = next(j for j in effect_figure_jobs(free_fit,
-                                                              star_effect_sizes(free_fit))
-                                if j[0].startswith("redshift"))
+    free_newton = newtonian_refit(free_fit)
+    assert free_newton.fewer_parameters == 1  # f is fitted, the Newtonian model has none
+    stem, build, caption = next(j for j in effect_figure_jobs(
+        free_fit, star_effect_sizes(free_fit), free_newton) if j[0].startswith("redshift"))
     fig = build()
     f, s = free_fit.value("f"), free_fit.sigma("f")
     assert s > 0 and f"fitted f = {f:.3g} ± {s:.2g}" in caption
+    star = stem.split("_", 1)[1]
+    assert (f"refitted to the same data (Δχ² = {free_newton.delta_chi2:.1f} for 1 fewer "
+            f"parameter, all data; {free_newton.star_delta_chi2[star]:.1f} from this "
+            "star's)") in caption
     labels = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
     assert f"model, fitted f = {f:.3g}" in labels
 
@@ -397,12 +425,12 @@ def _texts(fig):
 
 
 def test_figures_have_no_titles_one_solar_mass_spelling_and_units_on_axes(
-        rel_fit, rel_sizes, posterior, newt_fit):
+        rel_fit, rel_sizes, rel_newton, posterior, newt_fit):
     # Journals set captions outside the figure: no suptitle and no axes title anywhere;
     # the solar mass is written one way ($M_\odot$); every axis label states its unit in
     # parentheses (or "(dimensionless)") (common practice).
     figures = [sky_figure(rel_fit), *(star_figure(rel_fit, s) for s in rel_fit.stars[:2]),
-               *(build() for _, build, _ in effect_figure_jobs(rel_fit, rel_sizes)),
+               *(build() for _, build, _ in effect_figure_jobs(rel_fit, rel_sizes, rel_newton)),
                corner_figure(posterior, ["mass", "distance", "vz0"]),
                mass_distance_figure(posterior, ((newt_fit.value("mass"), 1e4),
                                                 (newt_fit.value("distance"), 10.0)))]

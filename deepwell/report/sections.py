@@ -17,7 +17,7 @@ from deepwell.results.effect_sizes import DETECTABLE_RULE
 from .analysis_tables import posterior_summary
 from .tables import OSCULATING_STATEMENT, format_asymmetric, format_value_error, md_text
 
-__all__ = ["OSCULATING_STATEMENT", "effects_block", "md_effects",
+__all__ = ["OSCULATING_STATEMENT", "effects_block", "md_effects", "newtonian_sentence",
            "extended_block", "md_extended", "enclosed_block", "md_enclosed",
            "posterior_parameters", "sampling_block", "posterior_compactness", "md_posterior",
            "not_converged_banner"]
@@ -78,12 +78,31 @@ def _unmodelled(model, sizes):
     return out
 
 
-def md_effects(result, sizes, figures):
+def newtonian_sentence(newtonian):
+    """One report.md line on the Newtonian model refitted to the same data."""
+    k = newtonian.fewer_parameters
+    params = (f"{k} fewer free parameter{'s' if k != 1 else ''}" if k > 0 else
+              "the same number of free parameters (the effect strengths are held, so the "
+              "models are not nested and Wilks' theorem does not apply)")
+    text = (f"- The Newtonian model refitted to the same data ({', '.join(newtonian.switched_off)}"
+            f" switched off; started at this fit's solution) has χ² = "
+            f"{newtonian.chi2_newtonian:.1f} against {newtonian.chi2_full:.1f}: "
+            f"Δχ² = {newtonian.delta_chi2:.1f} with {params}. The effect figures show the data "
+            "and the model relative to it.")
+    if not newtonian.converged:
+        text += (" **That refit did NOT converge: its χ² may lie above the Newtonian optimum, so "
+                 "the Δχ² may be too large.**")
+    return text
+
+
+def md_effects(result, sizes, figures, newtonian=None):
     """The "Relativistic effects" section of report.md."""
     m = result.model
     out = ["## Relativistic effects", "",
            f"Modelled in this fit: **{m.effects.describe()}**.", ""]
     out += [f"- {n[0].upper() + n[1:]}." for n in m.effect_notes()]
+    if newtonian is not None:
+        out.append(newtonian_sentence(newtonian))
     for name in m.layout.extra:
         if name in ("f", "f_sp"):
             kind = "redshift factor f" if name == "f" else "precession factor f_SP"
@@ -133,10 +152,11 @@ def md_effects(result, sizes, figures):
                        f"{result.value(f'{s}:t_peri'):.4f} | {d['pericentre_observed']:.4f} | "
                        f"{result.value(f'{s}:period'):.4f} | {d['integrated_period']:.4f} |")
     shown = [k for k in figures if k.startswith(("redshift_", "precession_"))]
-    out += ["", ("Figures comparing the data with a Newtonian orbit: "
+    out += ["", ("Figures comparing the data with the Newtonian model refitted to them: "
                  + ", ".join(f"`figures/{k}.png`" for k in shown) + ".") if shown else
-            "No effect figures: either figures were not drawn or no star's effect exceeds "
-            "its errors.", "", "Numbers per star: `tables/effects.ecsv`, `tables/effects.tex`.",
+            "No effect figures: either figures were not drawn, no Newtonian model was "
+            "refitted, or no star's effect exceeds its errors.", "",
+            "Numbers per star: `tables/effects.ecsv`, `tables/effects.tex`.",
             ""]
     return out
 

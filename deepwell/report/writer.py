@@ -155,7 +155,7 @@ def _q(result, label):
 
 
 def summary_dict(result, extra=None, posterior=None, profile=None, extended_limits=None,
-                 effect_sizes=None, sampling_failed=None):
+                 effect_sizes=None, sampling_failed=None, newtonian=None):
     """The content of summary.json (see the module docstring of deepwell.report).
 
     Parameters
@@ -175,6 +175,8 @@ def summary_dict(result, extra=None, posterior=None, profile=None, extended_limi
         per star, "effect_sizes", "integrated_period" and "pericentre_observed".
     sampling_failed : str, optional
         Why a requested sampling gave no posterior; adds a "sampling" entry saying so.
+    newtonian : deepwell.results.newtonian.NewtonianRefit, optional
+        Adds "newtonian_refit" (its chi-squares, Δχ² and parameter counts).
     """
     shared = result.model.layout.shared_names
     params = {}
@@ -216,6 +218,8 @@ def summary_dict(result, extra=None, posterior=None, profile=None, extended_limi
             stars[star]["pericentre_observed"] = {"value": _num(d["pericentre_observed"]),
                                                   "unit": "yr"}
             stars[star]["effect_sizes"] = json_safe(d)
+    if newtonian is not None:
+        out["newtonian_refit"] = json_safe(newtonian.as_dict())
     if profile is not None:
         out["enclosed_mass"] = enclosed_block(profile)
     if extended_limits:
@@ -327,7 +331,7 @@ def _md_star_tables(result, numbers):
 
 def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
                     extended_limits=None, effect_sizes=None, robustness="",
-                    sampling_failed=None):
+                    sampling_failed=None, newtonian=None):
     """Text of report.md.
 
     Parameters
@@ -337,7 +341,7 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
     comp : tuple (dict, CompactnessReport) or (None, None)
     figures : dict
         From :func:`deepwell.report.figures.write_figures` (empty: no figures).
-    posterior, profile, extended_limits, effect_sizes : optional
+    posterior, profile, extended_limits, effect_sizes, newtonian : optional
         The analyses (:meth:`deepwell.results.Analyses.report_kwargs`); each adds its section.
     robustness : str, optional
         Markdown of the data-set, outlier and jackknife sections, put before the figures.
@@ -403,7 +407,7 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
                    "propagated into the numbers below. " + compactness_paragraph(rep))
     out.append("")
     if effect_sizes is not None:
-        out += md_effects(result, effect_sizes, figures)
+        out += md_effects(result, effect_sizes, figures, newtonian)
     if extended_limits:
         out += md_extended(extended_limits)
     if profile is not None:
@@ -477,7 +481,7 @@ def write_report(result, folder, analyses, figures=True, extra=None):
     figs = {}
     if figures:
         figs = write_figures(result, folder / "figures", posterior=analyses.posterior,
-                             effect_sizes=analyses.effect_sizes)
+                             effect_sizes=analyses.effect_sizes, newtonian=analyses.newtonian)
         figs["enclosed_mass"] = {"caption": enclosed_caption(analyses.profile),
                                  "files": plot_enclosed_mass(analyses.profile,
                                                              folder / "figures" / "enclosed_mass")}

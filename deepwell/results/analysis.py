@@ -2,7 +2,9 @@
 
 :func:`analyse` gathers what ``deepwell fit`` reports beside the fit itself:
 the effect sizes per star, the enclosed-mass profile (one small refit per
-star), the per-data-set and outlier summaries, and on request the
+star), the Newtonian model refitted to the same data when the fit has
+relativistic effects (what the effect figures compare with), the
+per-data-set and outlier summaries, and on request the
 extended-mass limits (one fit per scale radius), the jackknife refits and a
 posterior sample handed in from the sampler.
 """
@@ -13,6 +15,7 @@ from .datasets import dataset_summary
 from .effect_sizes import extended_mass_limits, star_effect_sizes
 from .enclosed import enclosed_mass_profile
 from .jackknife import jackknife as run_jackknife
+from .newtonian import newtonian_refit, relativistic_effects
 from .outliers import outlier_table
 
 __all__ = ["Analyses", "analyse"]
@@ -42,6 +45,9 @@ class Analyses:
     sampling_failed : str or None
         Why a requested posterior sampling produced nothing (the report then
         rests on the least-squares fit and says so).
+    newtonian : deepwell.results.newtonian.NewtonianRefit or None
+        The Newtonian model refitted to the same data (None when the fit has
+        no relativistic effect).
     """
 
     effect_sizes: dict
@@ -52,12 +58,13 @@ class Analyses:
     jackknife: tuple = ()
     posterior: object = None
     sampling_failed: str | None = None
+    newtonian: object = None
 
     def report_kwargs(self):
         """The analyses as the keyword arguments of the summary and markdown writers."""
         return {"posterior": self.posterior, "profile": self.profile,
                 "extended_limits": self.extended_limits, "effect_sizes": self.effect_sizes,
-                "sampling_failed": self.sampling_failed}
+                "sampling_failed": self.sampling_failed, "newtonian": self.newtonian}
 
 
 def analyse(result, extended_mass=(), external=None, jackknife=(), posterior=None,
@@ -91,6 +98,10 @@ def analyse(result, extended_mass=(), external=None, jackknife=(), posterior=Non
         limits = extended_mass_limits(result.observations, result.settings, extended_mass)
     say("effect sizes and their detectability (a linearised refit per star and effect)")
     sizes = star_effect_sizes(result)
+    newt = None
+    if relativistic_effects(result.model.effects):
+        say("the Newtonian model refitted to the same data (started at this solution)")
+        newt = newtonian_refit(result)
     say("enclosed-mass profile (one refit per star)")
     profile = enclosed_mass_profile(result, external=external, progress=say)
     jk = []
@@ -99,4 +110,5 @@ def analyse(result, extended_mass=(), external=None, jackknife=(), posterior=Non
         jk.append(run_jackknife(result.observations, result.settings, by=by, result=result))
     return Analyses(effect_sizes=sizes, profile=profile, datasets=dataset_summary(result),
                     outliers=outlier_table(result), extended_limits=limits,
-                    jackknife=tuple(jk), posterior=posterior, sampling_failed=sampling_failed)
+                    jackknife=tuple(jk), posterior=posterior, sampling_failed=sampling_failed,
+                    newtonian=newt)

@@ -9,10 +9,11 @@ imagers and three spectrographs, some of which observe only a few stars, with
 offsets, zero-points and mis-stated errors injected per data set; fits it with
 the data-set terms (reference sets, offsets, zero-points and the error model);
 then times, in the same run, each analysis (effect sizes with their Fisher
-detectability, the per-star enclosed-mass refits, the per-data-set summary, the
-outlier table) and the report writing, and prints each as a ratio to the fit
-time.  The figures are timed only with ``--figures`` (they are drawn by
-matplotlib and cost the same with or without an error model).
+detectability, the per-star enclosed-mass refits, the Newtonian refit the effect
+figures compare with, the per-data-set summary, the outlier table) and the
+report writing, and prints each as a ratio to the fit time.  The figures are
+timed only with ``--figures`` (they are drawn by matplotlib and cost the same
+with or without an error model).
 """
 
 import argparse
@@ -27,6 +28,7 @@ from deepwell.results import analyse
 from deepwell.results.datasets import dataset_summary
 from deepwell.results.effect_sizes import star_effect_sizes
 from deepwell.results.enclosed import enclosed_mass_profile
+from deepwell.results.newtonian import newtonian_refit
 from deepwell.results.outliers import outlier_table
 from deepwell.tables import read_observations
 from deepwell.tables.datasets import datasets_from_args
@@ -150,6 +152,7 @@ def main():
         steps = {}
         _, steps["effect sizes + Fisher detectability"] = timed(star_effect_sizes, result)
         _, steps["enclosed-mass refits"] = timed(enclosed_mass_profile, result)
+        _, steps["Newtonian refit (effect figures)"] = timed(newtonian_refit, result)
         _, steps["per-data-set summary"] = timed(dataset_summary, result)
         _, steps["outlier table"] = timed(outlier_table, result)
         analyses, steps["analyse (all of the above)"] = timed(analyse, result)

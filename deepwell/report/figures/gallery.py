@@ -25,7 +25,8 @@ from .style import FORMATS, RASTER_POINTS, STYLE, save_figure
 __all__ = ["write_figures", "sky_caption", "star_caption"]
 
 
-def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=None):
+def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=None,
+                  newtonian=None):
     """Write the sky figure and one figure per star into ``folder``.
 
     Parameters
@@ -43,6 +44,9 @@ def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=
         From :func:`deepwell.results.effect_sizes.star_effect_sizes`: adds the
         redshift and precession figures of the stars where the effect exceeds
         the errors (see :func:`deepwell.report.figures.effects.effect_figure_jobs`).
+    newtonian : deepwell.results.newtonian.NewtonianRefit, optional
+        The Newtonian model refitted to the same data, which the effect figures
+        compare with (without it no effect figure is drawn).
 
     Returns
     -------
@@ -66,7 +70,7 @@ def write_figures(result, folder, formats=FORMATS, posterior=None, effect_sizes=
                      + (band + " Shaded: 68% band (16th to 84th percentile) of the radial "
                         "velocity over the same draws." if draws is not None else "")))
     if effect_sizes is not None:
-        jobs += effect_figure_jobs(result, effect_sizes)
+        jobs += effect_figure_jobs(result, effect_sizes, newtonian)
     if posterior is not None:
         jobs += _posterior_jobs(result, posterior)
     stems = [stem.casefold() for stem, _, _ in jobs]
