@@ -34,7 +34,9 @@ def add_calibrate_parser(subparsers):
                     help="continue an interrupted run from its journal OUT.trials.jsonl")
     mod = p.add_argument_group("fit model")
     mod.add_argument("--settings", help="fit settings (TOML); without an [effects] table "
-                                        "the effects match how the scenario is simulated")
+                                        "the effects match how the scenario is simulated, "
+                                        "without a [datasets] table the data-set terms match "
+                                        "its [systematics]")
     mod.add_argument("--sample", action="store_true",
                      help="check posterior intervals (slow: minutes per trial)")
     mod.add_argument("--sampler", choices=("nuts", "ensemble"), default="nuts",

@@ -159,7 +159,7 @@ class TrialSpec:
 
     description: object  # deepwell.tools.simulate.ScenarioDescription
     settings: object  # deepwell.tables.settings.Settings
-    names: tuple  # calibrated shared parameters
+    names: tuple  # scored parameters (deepwell.tools.scoring.scored_names)
     seed: int
     sample: SamplerOptions | None = None
 
