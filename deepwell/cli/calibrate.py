@@ -8,7 +8,7 @@ from deepwell.fit.sampling import SamplerOptions
 from deepwell.report.calibration import write_calibration
 from deepwell.report.outdir import discard_output, install_output, prepare_output
 from deepwell.tables.settings import load_settings
-from deepwell.tools.calibrate import calibrate, open_client, scenario_description
+from deepwell.tools.calibrate import TOO_FEW, calibrate, open_client, scenario_description
 from deepwell.tools.journal import journal_path
 
 from .options import common, dask_group, output_group
@@ -34,7 +34,9 @@ def add_calibrate_parser(subparsers):
                     help="continue an interrupted run from its journal OUT.trials.jsonl")
     mod = p.add_argument_group("fit model")
     mod.add_argument("--settings", help="fit settings (TOML); without an [effects] table "
-                                        "the effects match how the scenario is simulated")
+                                        "the effects match how the scenario is simulated, "
+                                        "without a [datasets] table the data-set terms match "
+                                        "its [systematics]")
     mod.add_argument("--sample", action="store_true",
                      help="check posterior intervals (slow: minutes per trial)")
     mod.add_argument("--sampler", choices=("nuts", "ensemble"), default="nuts",
@@ -73,10 +75,16 @@ def run_calibrate(args):
         discard_output(tmp)
         raise
     journal_path(args.out).unlink(missing_ok=True)
-    for row in result.table.itertuples():
+    table = result.table
+    for row in table[table.group != "star"].itertuples():
         log.info("%-8s coverage 68%%: %.3f (%s), 95%%: %.3f (%s), bias %+.2f sigma",
                  row.parameter, row.coverage68, row.verdict68, row.coverage95, row.verdict95,
                  row.bias_sigma)
+    stars = table[table.group == "star"]
+    if len(stars):
+        flagged = int((~stars.verdict68.isin(("honest", TOO_FEW))
+                       | ~stars.verdict95.isin(("honest", TOO_FEW))).sum())
+        log.info("per-star elements: %d rows, %d flagged (calibration.md)", len(stars), flagged)
     if result.n_failed:
         log.warning("%d of %d trials failed (see trials.ecsv)", result.n_failed, args.trials)
     log.info("calibration: %s", os.path.join(args.out, "calibration.md"))

@@ -3,7 +3,13 @@
 ``deepwell calibrate SCENARIO --trials N --out DIR`` simulates N data sets of a
 scenario (a folder holding ``description.toml``, or the description file
 itself) from its true parameters, fits each one, and counts how often the 68%
-and 95% intervals of every fitted shared parameter contain the true value.
+and 95% intervals of every fitted parameter with a stated truth contain it:
+the shared parameters (and f, f_sp when free), the data-set terms that the
+scenario's ``[systematics.NAME]`` inject (offsets, zero-points, error scales,
+measured against the fit's reference set) and the per-star Keplerian
+elements, each star alone and pooled per element
+(:mod:`deepwell.tools.scoring` says what is scored and how fitted values are
+aligned with the truth).
 Each trial is a complete re-simulation (:func:`deepwell.tools.simulate.simulate`
 with a fresh random generator): new noise *and* new epoch jitter and coverage
 draws, so the coverage is that of the observing design, not of one epoch list.
@@ -22,7 +28,12 @@ Verdict
     outside it is reported as "too narrow" (over-confident) or "too wide".
     The measured coverage also gets an exact 99.7% Clopper-Pearson interval
     (:func:`clopper_pearson`).  With 7 parameters x 2 levels about 4% of
-    perfectly honest calibrations still show one flag by chance.
+    perfectly honest calibrations still show one flag by chance; with the
+    per-star elements there are many more rows, and a single flag among
+    them means little.  A pooled row counts all stars' hits of one element
+    together (n = stars x trials), so it can tell sooner; it treats the stars
+    as independent, which they are only approximately (they share the mass
+    and distance).
 
 Seeds
     Trial i uses ``numpy.random.SeedSequence(seed, spawn_key=(i,))``, which is
@@ -61,7 +72,7 @@ import time
 import traceback
 import uuid
 from contextlib import contextmanager
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -70,7 +81,7 @@ from scipy import special
 from tqdm.auto import tqdm
 
 from deepwell.core.errors import DeepwellError
-from deepwell.core.parameters import EXTRA, SHARED
+from deepwell.core.parameters import SHARED
 from deepwell.fit.joint import fit_joint
 from deepwell.fit.sampling import SamplerOptions, sample_posterior
 from deepwell.fit.sampling.ensemble import NoProgress
@@ -81,7 +92,18 @@ from deepwell.tables.observations import Observations
 from deepwell.tables.settings import Settings, SharedSetting
 
 from .journal import TrialJournal
-from .simulate import load_description, simulate
+from .scoring import (
+    POOL_PREFIX,
+    aligned,
+    pools_of,
+    scored_names,
+    star_scorable,
+    star_shift,
+    systematics_datasets,
+    truth_of,
+    unit_of_name,
+)
+from .simulate import ELEMENT_KEYS, load_description, simulate
 
 __all__ = ["LEVELS", "BAND_LEVEL", "TOO_FEW", "trials_to_tell", "TrialSpec", "CalibrationResult",
            "acceptance_band", "clopper_pearson", "scenario_description", "fit_settings",
@@ -137,7 +159,7 @@ class TrialSpec:
 
     description: object  # deepwell.tools.simulate.ScenarioDescription
     settings: object  # deepwell.tables.settings.Settings
-    names: tuple  # calibrated shared parameters
+    names: tuple  # scored parameters (deepwell.tools.scoring.scored_names)
     seed: int
     sample: SamplerOptions | None = None
 
@@ -150,13 +172,23 @@ def scenario_description(path):
 
 
 def fit_settings(description, settings=None):
-    """Fit settings whose effects match how ``description`` is simulated.
+    """Fit settings whose effects and data-set terms match how ``description`` is simulated.
 
-    A settings object with its own ``[effects]`` table is used as given (that
-    is how a deliberately different fit model is calibrated).
+    A settings object with its own ``[effects]`` table keeps those effects, and
+    one with its own ``[datasets]`` table keeps those data-set choices (that is
+    how a deliberately different fit model is calibrated).  Otherwise the
+    effects follow the scenario's ``[effects]`` and the data-set terms its
+    ``[systematics.NAME]`` tables
+    (:func:`deepwell.tools.scoring.systematics_datasets`: offsets and
+    zero-points against a reference set, error scales).
     """
 
     settings = settings or Settings(reference_epoch=description.reference_epoch)
+    if not settings.datasets:
+        table = systematics_datasets(description)
+        if table:
+            settings = replace(settings, datasets=table)
+            settings.dataset_config()  # validate
     if settings.effects:
         return settings
     fx = description.effects
@@ -173,19 +205,20 @@ def fit_settings(description, settings=None):
     return out
 
 
-def calibrated_names(settings):
-    """Shared parameters the fit frees and whose truth the scenario states."""
+def calibrated_names(settings, description=None):
+    """Parameters the fit frees and whose truth the scenario states.
+
+    Without ``description``: the shared parameters and f, f_sp.  With it, also
+    the data-set terms and the per-star elements
+    (:func:`deepwell.tools.scoring.scored_names`).
+    """
+    if description is not None:
+        return tuple(scored_names(description, settings))
     fx = settings.effect_switches()
     names = [n for n in SHARED if not settings.shared_setting(n).fixed]
     names += [n for n in ("f", "f_sp") if n in fx.extra_names
               and not settings.shared_setting(n).fixed]
     return tuple(names)
-
-
-def _truth(description, names):
-    values = {**vars(description.shared), "f": description.effects.redshift,
-              "f_sp": description.effects.precession}
-    return {n: float(values[n]) for n in names}
 
 
 def observations_from(data, min_epochs=3):
@@ -212,25 +245,53 @@ def trial_seeds(seed, index):
     return sim, int(mcmc.generate_state(1)[0])
 
 
-def _intervals(spec, result, index):
-    """{name: (value, sigma, lo68, hi68, lo95, hi95)} from a fit or its posterior."""
-    names = spec.names
-    if spec.sample is None:
-        out = {}
-        for n in names:
-            v, s = result.value(n), result.sigma(n)
-            out[n] = (v, s, *(x for p in LEVELS for x in (v - _Z[p] * s, v + _Z[p] * s)))
-        return out, True
-    opt = replace(spec.sample, seed=trial_seeds(spec.seed, index)[1],
-                              progress=False, processes=1)
+def _posterior_draws(spec, result, index):
+    """({label: all draws}, converged) of the posterior of one trial's fit."""
+    opt = replace(spec.sample, seed=trial_seeds(spec.seed, index)[1], progress=False,
+                  processes=1)
     post = sample_posterior(result, opt)
-    out = {}
-    for n in names:
-        draws = post.samples[..., post.labels.index(n)].ravel()
-        q = [50.0] + [100 * x for p in LEVELS for x in (0.5 - p / 2, 0.5 + p / 2)]
-        med, lo68, hi68, lo95, hi95 = np.percentile(draws, q)
-        out[n] = (med, 0.5 * (hi68 - lo68), lo68, hi68, lo95, hi95)
-    return out, bool(post.converged)
+    draws = {lab: post.samples[..., i].ravel() for i, lab in enumerate(post.labels)}
+    return draws, bool(post.converged)
+
+
+def _intervals(spec, result, index):
+    """{name: (value, sigma, lo68, hi68, lo95, hi95)} from a fit or its posterior; notes.
+
+    Per-star elements are compared like with like (:mod:`deepwell.tools.scoring`):
+    each is moved by the difference between the true elements of the fitted
+    pericentre passage and the stated ones, angles by whole turns.  A name the
+    fit lacks, or a star that cannot be compared like with like, gets NaN.
+    """
+    names = spec.names
+    truth = truth_of(spec.description, spec.settings, names)
+    draws, converged = (None, True) if spec.sample is None else \
+        _posterior_draws(spec, result, index)
+    stars = {s.name: s for s in spec.description.stars}
+    shift, skip = {}, {}
+    for star in sorted({n.rpartition(":")[0] for n in names
+                        if n.rpartition(":")[2] in ELEMENT_KEYS} & set(result.stars)):
+        why = star_scorable(spec.description, result, star)
+        if why:
+            skip[star] = why
+            continue
+        label = f"{star}:t_peri"
+        tp = result.value(label) if draws is None else float(np.median(draws[label]))
+        shift.update({f"{star}:{el}": d
+                      for el, d in star_shift(spec.description, stars[star], tp).items()})
+    have = [n for n in names if n in result.labels and n.rpartition(":")[0] not in skip]
+    out = {n: (np.nan,) * 6 for n in names}
+    notes = [f"elements of {s} not scored: {why}" for s, why in sorted(skip.items())]
+    q = [50.0] + [100 * x for p in LEVELS for x in (0.5 - p / 2, 0.5 + p / 2)]
+    for n in have:
+        if draws is None:
+            v, s = float(aligned(result.value(n), n, truth[n], shift.get(n, 0.0))), \
+                result.sigma(n)
+            out[n] = (v, s, *(x for p in LEVELS for x in (v - _Z[p] * s, v + _Z[p] * s)))
+        else:
+            med, lo68, hi68, lo95, hi95 = np.percentile(
+                aligned(draws[n], n, truth[n], shift.get(n, 0.0)), q)
+            out[n] = (med, 0.5 * (hi68 - lo68), lo68, hi68, lo95, hi95)
+    return out, converged, notes
 
 
 def run_trial(index, spec):
@@ -254,7 +315,7 @@ def run_trial(index, spec):
         data = simulate(spec.description, np.random.default_rng(sim_seq))
         obs = observations_from(data, spec.settings.min_epochs)
         result = fit_joint(obs, spec.settings)
-        found, ok = _intervals(spec, result, index)
+        found, ok, notes = _intervals(spec, result, index)
     except Exception as exc:  # a failed trial is recorded, not dropped
         last = traceback.extract_tb(exc.__traceback__)[-1]
         rec["message"] = f"{type(exc).__name__}: {exc} ({os.path.basename(last.filename)}:" \
@@ -266,7 +327,8 @@ def run_trial(index, spec):
     converged = bool(result.converged) and ok
     rec.update(status="ok" if converged else "not converged", chi2=float(result.chi2),
                n_data=int(result.n_data), n_stars=len(result.stars),
-               message="; ".join(f"dropped {s}: {why}" for s, _, why in obs.dropped_stars))
+               message="; ".join([f"dropped {s}: {why}" for s, _, why in obs.dropped_stars]
+                                 + notes))
     return rec
 
 
@@ -384,13 +446,17 @@ class CalibrationResult:
     table : pandas.DataFrame
         One row per calibrated parameter (see :func:`summarise`).
     truth : dict
-        True value of every calibrated parameter.
+        True value of every calibrated parameter (in the fit's reference
+        convention, :mod:`deepwell.tools.scoring`).
     units : dict
+        Unit of every calibrated parameter and pooled row.
     scenario, mode : str
         Scenario name; "least squares" or "posterior".
     seed, n_trials : int
     elapsed : float
         Wall time, s.
+    pools : dict
+        {pooled row name: member names} of the per-star elements.
     """
 
     trials: pd.DataFrame
@@ -402,6 +468,7 @@ class CalibrationResult:
     seed: int
     n_trials: int
     elapsed: float
+    pools: dict = field(default_factory=dict)
 
     @property
     def n_failed(self):
@@ -451,39 +518,81 @@ def _statement(row):
     return "NOT honest: " + " and ".join(bad)
 
 
-def summarise(trials, truth, level=BAND_LEVEL):
+def _columns(trials, name, true):
+    """(value, sigma, lo68, hi68, lo95, hi95, truth) arrays of ``name`` over usable trials."""
+    v, s = trials[f"{name}_value"].to_numpy(float), trials[f"{name}_sigma"].to_numpy(float)
+    use = np.isfinite(v) & np.isfinite(s) & (s > 0)
+    ends = [trials[f"{name}_{k}{tag}"].to_numpy(float)[use] for tag in _TAGS
+            for k in ("lo", "hi")]
+    return (v[use], s[use], *ends, np.full(int(use.sum()), float(true)))
+
+
+def _row(name, group, true, cols, level):
+    """One summary row from the stacked columns of :func:`_columns`."""
+    v, s, lo68, hi68, lo95, hi95, t = cols
+    n = int(v.size)
+    pull = (v - t) / s
+    err = v - t
+    row = {"parameter": name, "group": group, "truth": true, "trials": n}
+    for tag, p, lo, hi in zip(_TAGS, LEVELS, (lo68, lo95), (hi68, hi95), strict=True):
+        k = int(((lo <= t) & (hi >= t)).sum())
+        band = acceptance_band(n, p, level)
+        cp = clopper_pearson(k, n, level)
+        row.update({f"nominal{tag}": p, f"hits{tag}": k,
+                    f"coverage{tag}": k / n if n else np.nan,
+                    f"band{tag}_lo": band[0] / n if n else np.nan,
+                    f"band{tag}_hi": band[1] / n if n else np.nan,
+                    f"cp{tag}_lo": cp[0], f"cp{tag}_hi": cp[1],
+                    f"verdict{tag}": _verdict(k, band, n) if n else "no trials"})
+    sd = lambda x: float(np.std(x, ddof=1)) if x.size > 1 else np.nan  # noqa: E731
+    row.update(bias=float(np.mean(err)) if n else np.nan,
+               bias_err=sd(err) / math.sqrt(n) if n > 1 else np.nan,
+               bias_sigma=float(np.mean(pull)) if n else np.nan,
+               bias_sigma_err=sd(pull) / math.sqrt(n) if n > 1 else np.nan,
+               pull_scatter=sd(pull))
+    row["honest"] = row["verdict68"] == row["verdict95"] == "honest"
+    row["statement"] = _statement(row)
+    return row
+
+
+def summarise(trials, truth, level=BAND_LEVEL, groups=None, pools=None):
     """Coverage, bands, bias and pull scatter per parameter from the trial records.
 
     Trials that failed, or whose interval is not finite, are left out of
     that parameter's counts (``trials`` column).
+
+    Parameters
+    ----------
+    trials : pandas.DataFrame
+        Trial records (:func:`run_trial`).
+    truth : dict
+        True value of each scored name.
+    level : float
+        Probability content of the acceptance band and the Clopper-Pearson interval.
+    groups : dict, optional
+        Group of each name ("shared", "data set", "star"); default "shared".
+    pools : dict, optional
+        {pooled row name: member names}: each pooled row counts the hits of all
+        its members together, n = the sum of their usable trials, against
+        Binomial(n, nominal) (members' truths differ; its ``truth`` is NaN).
+        This treats the members as independent; stars share the mass and
+        distance, so their hits may be correlated, which widens the true
+        spread of the pooled count beyond the binomial band.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per name, then one per pool (group "pooled").
     """
-    rows = []
-    for name, true in truth.items():
-        v, s = trials[f"{name}_value"].to_numpy(float), trials[f"{name}_sigma"].to_numpy(float)
-        use = np.isfinite(v) & np.isfinite(s) & (s > 0)
-        n = int(use.sum())
-        pull = (v[use] - true) / s[use]
-        err = v[use] - true
-        row = {"parameter": name, "truth": true, "trials": n}
-        for tag, p in zip(_TAGS, LEVELS, strict=True):
-            lo, hi = trials[f"{name}_lo{tag}"].to_numpy(float), trials[f"{name}_hi{tag}"]
-            k = int(((lo[use] <= true) & (hi.to_numpy(float)[use] >= true)).sum())
-            band = acceptance_band(n, p, level)
-            cp = clopper_pearson(k, n, level)
-            row.update({f"nominal{tag}": p, f"hits{tag}": k,
-                        f"coverage{tag}": k / n if n else np.nan,
-                        f"band{tag}_lo": band[0] / n if n else np.nan,
-                        f"band{tag}_hi": band[1] / n if n else np.nan,
-                        f"cp{tag}_lo": cp[0], f"cp{tag}_hi": cp[1],
-                        f"verdict{tag}": _verdict(k, band, n) if n else "no trials"})
-        sd = lambda x: float(np.std(x, ddof=1)) if x.size > 1 else np.nan  # noqa: E731
-        row.update(bias=float(np.mean(err)) if n else np.nan,
-                   bias_err=sd(err) / math.sqrt(n) if n > 1 else np.nan,
-                   bias_sigma=float(np.mean(pull)) if n else np.nan,
-                   bias_sigma_err=sd(pull) / math.sqrt(n) if n > 1 else np.nan,
-                   pull_scatter=sd(pull))
-        row["honest"] = row["verdict68"] == row["verdict95"] == "honest"
-        row["statement"] = _statement(row)
+    groups = groups or {}
+    rows = [_row(name, groups.get(name, "shared"), true, _columns(trials, name, true), level)
+            for name, true in truth.items()]
+    for pool, members in (pools or {}).items():
+        parts = [_columns(trials, m, truth[m]) for m in members]
+        cols = tuple(np.concatenate(c) for c in zip(*parts, strict=True))
+        row = _row(pool, "pooled", np.nan, cols, level)
+        row["statement"] += (f" (pooled over {len(members)} stars, counted as independent "
+                             "trials)")
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -518,7 +627,8 @@ def calibrate(description, n_trials, seed=0, settings=None, sample=None, client=
     if n_trials < 1:
         raise ValueError(f"need at least one trial, got {n_trials}")
     settings = fit_settings(description, settings)
-    names = calibrated_names(settings)
+    groups = scored_names(description, settings)
+    names = tuple(groups)
     spec = TrialSpec(description, settings, names, int(seed), sample)
     book = None
     if journal is not None:
@@ -534,11 +644,14 @@ def calibrate(description, n_trials, seed=0, settings=None, sample=None, client=
     else:
         records = run_trials(client, spec, n_trials, progress, in_flight, **kw)
     trials = pd.DataFrame(records, columns=list(run_trial_columns(names)))
-    truth = _truth(description, names)
-    units = {n: (SHARED.get(n) or EXTRA[n]).unit for n in names}
-    return CalibrationResult(trials, summarise(trials, truth), truth, units, description.name,
+    truth = truth_of(description, settings, names)
+    pools = pools_of(groups)
+    units = {n: unit_of_name(n) for n in names}
+    units.update({p: unit_of_name(p.removeprefix(POOL_PREFIX)) for p in pools})
+    table = summarise(trials, truth, groups=groups, pools=pools)
+    return CalibrationResult(trials, table, truth, units, description.name,
                              "least squares" if sample is None else "posterior", int(seed),
-                             int(n_trials), time.monotonic() - t0)
+                             int(n_trials), time.monotonic() - t0, pools)
 
 
 def run_trial_columns(names):
