@@ -192,6 +192,9 @@ def test_extended_mass_limits_reach_the_report(scenario, tmp_path):
     (["--extended-mass", "-5"], "--extended-mass"),  # radii must be positive
     (["--reference-radius", "0"], "--reference-radius"),
     (["--sample", "--chains", "0"], "--chains"),
+    (["--figure-stars", "t-99"], "--figure-stars"),  # no such star in the data
+    (["--no-figures", "--figure-stars", "t-1"], "--figure-stars"),  # figures asked and refused
+    (["--no-figures", "--all-star-figures"], "--all-star-figures"),
 ])
 def test_options_that_cannot_be_used_are_refused_before_the_fit(scenario, tmp_path, capsys,
                                                                  options, option):

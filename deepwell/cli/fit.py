@@ -7,6 +7,7 @@ from pathlib import Path
 
 from deepwell.core.errors import OptionError
 from deepwell.fit.sampling import SamplerOptions
+from deepwell.report import STAR_FIGURE_LIMIT, FigureOptions
 from deepwell.tables import Settings, datasets_from_args, effects_from_args, load_settings
 from deepwell.tools.pipeline import FitJob, fit_report
 
@@ -27,6 +28,13 @@ def add_fit_parser(sub):
     io.add_argument("--replace", action="store_true",
                     help="replace an earlier deepwell report in --out (foreign files are kept)")
     io.add_argument("--no-figures", action="store_true", help="skip the figures (faster)")
+    io.add_argument("--figure-stars", nargs="+", metavar="STAR",
+                    help=f"stars that get figures of their own even beyond "
+                         f"{STAR_FIGURE_LIMIT} stars (where only the best-constrained orbits "
+                         "get them)")
+    io.add_argument("--all-star-figures", action="store_true",
+                    help=f"figures for every star, however many (default: at most "
+                         f"{STAR_FIGURE_LIMIT} stars get their own)")
     mod = p.add_argument_group("model and data")
     mod.add_argument("--settings", help="TOML settings file (fixed values, bounds, priors)")
     mod.add_argument("--strict", action="store_true",
@@ -106,6 +114,11 @@ def check_options(args):
             if value is not None:
                 raise OptionError(option, "applies to posterior sampling only: add --sample "
                                           "(or leave the option out)")
+    if args.no_figures:
+        for option, value in (("--figure-stars", args.figure_stars),
+                              ("--all-star-figures", args.all_star_figures or None)):
+            if value is not None:
+                raise OptionError(option, "asks for figures, but --no-figures skips them")
     for b in args.extended_mass or ():
         if not (b > 0 and math.isfinite(b)):
             raise OptionError("--extended-mass", f"scale radii must be positive (au), got {b:g}")
@@ -126,7 +139,7 @@ def run_fit(args):
     t0 = time.perf_counter()
     settings = load_settings(args.settings) if args.settings else Settings()
     settings = _dataset_settings(_effect_settings(settings, args), args)
-    job = FitJob(figures=not args.no_figures, strict=args.strict,
+    job = FitJob(figures=_figures(args), strict=args.strict,
                  extended_mass=tuple(args.extended_mass or ()), external=args.external,
                  jackknife=tuple(args.jackknife or ()), sampling=_sampling(args),
                  resume=args.resume, extra={"command": "deepwell " + " ".join(args.argv)})
@@ -138,6 +151,14 @@ def run_fit(args):
              m, sm, d, sd, result.chi2, result.dof, time.perf_counter() - t0)
     log.info("report: %s", Path(args.out) / "report.md")
     return 0
+
+
+def _figures(args):
+    """False without figures, else the figure options of the command line."""
+    if args.no_figures:
+        return False
+    return FigureOptions(star_limit=None if args.all_star_figures else STAR_FIGURE_LIMIT,
+                         stars=tuple(args.figure_stars or ()))
 
 
 def _sampling(args):

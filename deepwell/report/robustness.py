@@ -12,12 +12,12 @@ from astropy.table import Table
 
 from deepwell.core.jsonsafe import json_safe
 from deepwell.core.units import UNITS, unit_of
-from deepwell.report.figures.jackknife import jackknife_caption, plot_jackknife
+from deepwell.report.figures.jackknife import jackknife_caption, jackknife_figure
 
 from .tables import md_text
 
 __all__ = ["robustness_summary", "write_robustness_tables", "robustness_markdown",
-           "write_robustness_figures"]
+           "robustness_figure_jobs"]
 
 
 
@@ -68,15 +68,11 @@ def write_robustness_tables(analyses, folder):
     return files
 
 
-def write_robustness_figures(jackknife, folder):
-    """One jackknife figure per result: {stem: {"caption", "files"}}."""
-    out = {}
-    for jk in jackknife:
-        stem = f"jackknife_{jk.by}"
-        files = plot_jackknife(jk, Path(folder) / stem)
-        out[stem] = {"caption": jackknife_caption(jk),
-                     "files": [Path(f) for f in files]}
-    return out
+def robustness_figure_jobs(jackknife):
+    """One jackknife figure job ``(stem, build, caption)`` per result, for
+    :func:`deepwell.report.figures.gallery.write_figures` (``more``)."""
+    return [(f"jackknife_{jk.by}", lambda jk=jk: jackknife_figure(jk), jackknife_caption(jk))
+            for jk in jackknife]
 
 
 def _fmt(v, err=None, digits=3):

@@ -40,14 +40,14 @@ from deepwell.results.compactness import compactness, compactness_paragraph
 from deepwell.results.saved_fit import write_state
 
 from .analysis_tables import write_extra_tables
-from .figures.enclosed import enclosed_caption, plot_enclosed_mass
-from .figures.gallery import write_figures
+from .figures.enclosed import enclosed_caption, enclosed_figure
+from .figures.gallery import FigureOptions, choose_star_figures, left_out_text, write_figures
 from .inference_data import INFERENCE_FILE, write_inference_data
 from .outdir import staged_output
 from .robustness import (
+    robustness_figure_jobs,
     robustness_markdown,
     robustness_summary,
-    write_robustness_figures,
     write_robustness_tables,
 )
 from .sections import (
@@ -331,7 +331,7 @@ def _md_star_tables(result, numbers):
 
 def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
                     extended_limits=None, effect_sizes=None, robustness="",
-                    sampling_failed=None, newtonian=None):
+                    sampling_failed=None, figures_note="", newtonian=None):
     """Text of report.md.
 
     Parameters
@@ -345,6 +345,9 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
         The analyses (:meth:`deepwell.results.Analyses.report_kwargs`); each adds its section.
     robustness : str, optional
         Markdown of the data-set, outlier and jackknife sections, put before the figures.
+    figures_note : str, optional
+        Markdown heading the figures (which stars have no figures of their own:
+        :func:`deepwell.report.figures.gallery.left_out_text`).
     """
     numbers = {s: star_numbers(result, s) for s in result.stars}
     obs = result.observations
@@ -425,6 +428,8 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
     if robustness:
         out += [robustness]
     out += ["## Figures", ""]
+    if figures and figures_note:
+        out += [figures_note, ""]
     if not figures:
         out.append("Figures were not drawn for this report.")
     for stem, fig in figures.items():
@@ -445,7 +450,7 @@ def markdown_report(result, notes, comp, figures, posterior=None, profile=None,
 
 
 # ---------------------------------------------------------------------- entry
-def write_report(result, folder, analyses, figures=True, extra=None):
+def write_report(result, folder, analyses, figures=True, extra=None, progress=None):
     """Write the full report of ``result`` and its analyses into ``folder``.
 
     Parameters
@@ -457,10 +462,14 @@ def write_report(result, folder, analyses, figures=True, extra=None):
         From :func:`deepwell.results.analyse`: effect sizes, enclosed-mass
         profile, data-set and outlier summaries and, when computed,
         extended-mass limits, jackknife refits and the posterior sample.
-    figures : bool, optional
-        Also draw the figures (the slowest part, a second or so per star).
+    figures : bool or deepwell.report.figures.gallery.FigureOptions, optional
+        Also draw the figures (the slowest part, about half a second per star
+        and process); options say which stars get figures of their own beyond
+        :data:`~deepwell.report.figures.gallery.STAR_FIGURE_LIMIT` stars.
     extra : dict, optional
         Extra top-level entries for summary.json.
+    progress : callable, optional
+        Called with short progress lines while the figures are drawn.
 
     Returns
     -------
@@ -478,17 +487,20 @@ def write_report(result, folder, analyses, figures=True, extra=None):
     files += write_extra_tables(result, folder / "tables", sizes=analyses.effect_sizes,
                                 limits=analyses.extended_limits, posterior=analyses.posterior,
                                 profile=analyses.profile)
-    figs = {}
+    figs, note = {}, ""
     if figures:
+        options = figures if isinstance(figures, FigureOptions) else FigureOptions()
+        more = [("enclosed_mass", lambda: enclosed_figure(analyses.profile),
+                 enclosed_caption(analyses.profile)),
+                *robustness_figure_jobs(analyses.jackknife)]
         figs = write_figures(result, folder / "figures", posterior=analyses.posterior,
-                             effect_sizes=analyses.effect_sizes, newtonian=analyses.newtonian)
-        figs["enclosed_mass"] = {"caption": enclosed_caption(analyses.profile),
-                                 "files": plot_enclosed_mass(analyses.profile,
-                                                             folder / "figures" / "enclosed_mass")}
-        figs.update(write_robustness_figures(analyses.jackknife, folder / "figures"))
+                             effect_sizes=analyses.effect_sizes, options=options, more=more,
+                             newtonian=analyses.newtonian,
+                             progress=progress)
+        note = left_out_text(choose_star_figures(result, options))
         files += [p for f in figs.values() for p in f["files"]]
     text = markdown_report(result, report_notes(result), _compactness(result), figs,
-                           robustness=robustness_markdown(analyses), **kw)
+                           robustness=robustness_markdown(analyses), figures_note=note, **kw)
     (folder / "report.md").write_text(text, encoding="utf-8")
     files.append(folder / "report.md")
     files.append(write_state(result, folder))  # the saved fit, for later commands

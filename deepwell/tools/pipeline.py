@@ -13,13 +13,21 @@ import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
+from deepwell.core.errors import OptionError
 from deepwell.fit import fit_joint, sample_posterior
 from deepwell.fit.sampling import SamplingError, SamplingWarning
-from deepwell.report import discard_output, install_output, prepare_output, write_report
+from deepwell.report import (
+    FigureOptions,
+    discard_output,
+    install_output,
+    prepare_output,
+    write_report,
+)
 from deepwell.results import analyse
 from deepwell.tables import input_size, read_external_constraints, read_observations
 
-__all__ = ["FitJob", "fit_report", "chains_folder", "described_epoch", "epoch_settings"]
+__all__ = ["FitJob", "fit_report", "chains_folder", "described_epoch", "epoch_settings",
+           "check_figure_stars"]
 
 
 @dataclass(frozen=True)
@@ -28,8 +36,8 @@ class FitJob:
 
     Attributes
     ----------
-    figures : bool
-        Draw the figures.
+    figures : bool or deepwell.report.FigureOptions
+        Draw the figures (options: which stars get figures of their own).
     strict : bool
         Stop on a star with too few epochs instead of setting it aside.
     extended_mass : tuple of float
@@ -46,7 +54,7 @@ class FitJob:
         Extra top-level entries of summary.json (e.g. the command line).
     """
 
-    figures: bool = True
+    figures: object = True
     strict: bool = False
     extended_mass: tuple = ()
     external: str | None = None
@@ -94,6 +102,27 @@ def epoch_settings(scenario, settings, say):
     return dataclasses.replace(settings, reference_epoch=stated)
 
 
+def check_figure_stars(figures, observations):
+    """Refuse figure stars (``--figure-stars``) that are not in the observations.
+
+    Raises
+    ------
+    OptionError
+        Naming the first unknown star, and saying so when it was set aside for
+        too few epochs.
+    """
+    if not isinstance(figures, FigureOptions):
+        return
+    known = set(observations.positions["star"].astype(str))
+    dropped = {star: reason for star, _, reason in observations.dropped_stars}
+    for star in figures.stars:
+        if star in dropped:
+            raise OptionError("--figure-stars", f"star '{star}' was set aside before the fit "
+                                                f"({dropped[star]})")
+        if star not in known:
+            raise OptionError("--figure-stars", f"no star '{star}' in the observations")
+
+
 def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=None):
     """Fit ``scenario`` with ``settings`` and write the report folder ``out``.
 
@@ -122,6 +151,7 @@ def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=No
     say(f"reading {input_size(scenario)} of observations in {scenario}")
     obs = read_observations(scenario, min_epochs=settings.min_epochs, strict=job.strict,
                             columns=settings.columns)
+    check_figure_stars(job.figures, obs)
     external = read_external_constraints(job.external) if job.external else None
     tmp = prepare_output(out, replace=replace)
     try:
@@ -143,7 +173,8 @@ def fit_report(scenario, out, settings, job=FitJob(), replace=False, progress=No
                            jackknife=job.jackknife, posterior=posterior, progress=say,
                            sampling_failed=failed)
         say("writing the report")
-        write_report(result, tmp, analyses, figures=job.figures, extra=job.extra)
+        write_report(result, tmp, analyses, figures=job.figures, extra=job.extra,
+                     progress=say)
         install_output(tmp, out, replace=replace)
     except BaseException:
         discard_output(tmp)

@@ -11,9 +11,12 @@ the data-set terms (reference sets, offsets, zero-points and the error model);
 then times, in the same run, each analysis (effect sizes with their Fisher
 detectability, the per-star enclosed-mass refits, the Newtonian refit the effect
 figures compare with, the per-data-set summary, the outlier table) and the
-report writing, and prints each as a ratio to the fit time.  The figures are
-timed only with ``--figures`` (they are drawn by matplotlib and cost the same
-with or without an error model).
+report writing, and prints each as a ratio to the fit time.  The figures are timed only with ``--figures`` (they are drawn by
+matplotlib and cost the same with or without an error model): once drawn in
+this process alone (``FigureOptions(processes=1)``, the way every figure was
+drawn before the drawing processes) as the figures' baseline, once as
+``deepwell fit`` draws them (up to ``FIGURE_PROCESSES`` forked processes), each
+as the report writing with figures minus the writing without them.
 """
 
 import argparse
@@ -23,7 +26,8 @@ import time
 from pathlib import Path
 
 from deepwell.fit import fit_joint
-from deepwell.report import write_report
+from deepwell.report import FigureOptions, write_report
+from deepwell.report.figures.drawing import figure_processes
 from deepwell.results import analyse
 from deepwell.results.datasets import dataset_summary
 from deepwell.results.effect_sizes import star_effect_sizes
@@ -159,8 +163,14 @@ def main():
         _, steps["write_report, no figures"] = timed(write_report, result, tmp / "r1",
                                                      analyses, figures=False)
         if args.figures:
-            _, steps["write_report with figures"] = timed(write_report, result, tmp / "r2",
-                                                          analyses, figures=True)
+            processes = figure_processes(len(result.model.stars) + 8)
+            _, serial = timed(write_report, result, tmp / "r2", analyses,
+                              figures=FigureOptions(processes=1))
+            _, default = timed(write_report, result, tmp / "r3", analyses, figures=True)
+            plain = steps["write_report, no figures"]
+            steps["figures, one process (baseline)"] = serial - plain
+            steps[f"figures, {processes} processes (default)"] = default - plain
+            steps["write_report with figures"] = default
     m = result.model
     print(f"{len(m.stars)} stars, {m.n_data} data, {int(result.free.sum())} fitted parameters "
           f"(error model {args.error_model}, offsets, zero-points); effects: "
@@ -170,6 +180,10 @@ def main():
         print(f"  {name:38s} {t:8.2f} s   {t / t_fit:.2f}x the fit")
     report = steps["analyse (all of the above)"] + steps["write_report, no figures"]
     print(f"report stage without figures (analyse + write): {report / t_fit:.2f}x the fit")
+    if args.figures:
+        one, many = (t for name, t in steps.items() if name.startswith("figures,"))
+        print(f"figures: {one / t_fit:.2f}x the fit in one process, {many / t_fit:.2f}x as "
+              f"drawn by default ({one / many:.2f} times faster)")
 
 
 if __name__ == "__main__":

@@ -37,8 +37,9 @@ from .style import (
     unique_names,
 )
 
-__all__ = ["mass_relative_positions", "sky_figure", "sky_zoom", "star_figure", "figure_name",
-           "position_classes", "velocity_classes", "LEGEND_STARS", "DENSITY_CELLS"]
+__all__ = ["mass_relative_positions", "sky_figure", "sky_zoom", "star_inputs", "star_figure",
+           "figure_name", "position_classes", "velocity_classes", "LEGEND_STARS",
+           "DENSITY_CELLS"]
 
 
 def figure_name(star):
@@ -107,13 +108,18 @@ def _square_limits(ax, x, y, pad=0.04):
 
 
 def _draw_tracks(ax, result, star, draws, colour, rasterized=False):
-    """Thin orbits of posterior draws (posterior-predictive spread on the sky)."""
+    """Thin orbits of posterior draws (posterior-predictive spread on the sky).
+
+    One collection of all the draws' lines: each is stroked on its own, as
+    separate lines would be (so their transparencies add up the same), at a
+    fraction of the drawing cost of one artist per draw.
+    """
     if draws is None:
         return
     east, north = sky_draw_tracks(result, star, draws)
-    for j in range(east.shape[0]):
-        ax.plot(east[j], north[j], color=colour, lw=0.4, alpha=0.08, zorder=1,
-                rasterized=rasterized)
+    ax.add_collection(LineCollection(np.stack([east, north], axis=-1), colors=colour,
+                                     linewidths=0.4, alpha=0.08, zorder=1,
+                                     rasterized=rasterized))
 
 
 def _arrow_positions(e, n):
@@ -324,7 +330,22 @@ def _data_styles(result):
     return {ds: style_of(j) for j, ds in enumerate(names)}
 
 
-def star_figure(result, star, draws=None):
+def star_inputs(result):
+    """What every star's figure takes from the whole fit, computed once for all of them.
+
+    Returns
+    -------
+    dict
+        ``ra``, ``dec`` (:func:`mass_relative_positions`, mas), ``pred`` (the
+        model's predictions of every row at the fit) and ``styles`` (the
+        data-set styles, the same in every star's figure).
+    """
+    ra, dec = mass_relative_positions(result)
+    return {"ra": ra, "dec": dec, "pred": result.model.predict(result.internal),
+            "styles": _data_styles(result)}
+
+
+def star_figure(result, star, draws=None, inputs=None):
     """Panels of one star: sky track, position residuals and radial velocities.
 
     The sky track carries a few epoch labels and arrows in the direction of
@@ -334,21 +355,23 @@ def star_figure(result, star, draws=None):
     ``draws`` (posterior internal vectors) adds their orbits on the sky and a
     68% posterior-predictive band on the radial velocities.  One legend below
     the panels, clear of every curve; no title (the caption says what it shows).
+    ``inputs`` (:func:`star_inputs` of the same result) saves recomputing the
+    whole model for every star.
 
     Returns
     -------
     matplotlib.figure.Figure
     """
-    m, vec = result.model, result.internal
+    m = result.model
     k = m.stars.index(star)
-    ra, dec = mass_relative_positions(result)
-    pred = m.predict(vec)
+    inputs = star_inputs(result) if inputs is None else inputs
+    ra, dec, pred = inputs["ra"], inputs["dec"], inputs["pred"]
     sel = m.pos.star == k
     vsel = (m.vel.star == k) if m.vel is not None else None
     has_rv = vsel is not None and bool(vsel.any())
     pos_classes = position_classes(result, star)
     vel_classes = velocity_classes(result, star) if has_rv else []
-    styles = _data_styles(result)
+    styles = inputs["styles"]
     n_rows = 2 * max(len(pos_classes), 1) + (1 + len(vel_classes) if has_rv else 2)
     n_entries = len(set(m.pos.dataset[sel]) | (set(m.vel.dataset[vsel]) if has_rv else set())) \
         + 3 + (draws is not None and has_rv)
