@@ -11,7 +11,8 @@ the data-set terms (reference sets, offsets, zero-points and the error model);
 then times, in the same run, each analysis (effect sizes with their Fisher
 detectability, the per-star enclosed-mass refits, the Newtonian refit the effect
 figures compare with, the per-data-set summary, the outlier table) and the
-report writing, and prints each as a ratio to the fit time.  The figures are timed only with ``--figures`` (they are drawn by
+report writing, and prints each as a ratio to the fit time.  The figures are
+timed only with ``--figures`` (they are drawn by
 matplotlib and cost the same with or without an error model): once drawn in
 this process alone (``FigureOptions(processes=1)``, the way every figure was
 drawn before the drawing processes) as the figures' baseline, once as
