@@ -12,6 +12,7 @@ import pytest
 from astropy.table import Table
 from scipy import stats
 
+import deepwell.report.comparison as report_comparison
 from deepwell.cli import main
 from deepwell.core.errors import DeepwellError
 from deepwell.fit.joint import fit_joint
@@ -236,7 +237,15 @@ def test_an_injected_plummer_mass_is_found_and_none_gives_an_upper_limit(tight, 
 
 # ------------------------------------------------------------------ command and report
 def test_compare_command_writes_tables_figure_and_keeps_the_folder_on_failure(
-        tmp_path, tight, capsys):
+        tmp_path, tight, capsys, monkeypatch):
+    drawn = []
+
+    def recording(comparison):
+        drawn.append(real_figure(comparison))
+        return drawn[-1]
+
+    real_figure = report_comparison.comparison_figure
+    monkeypatch.setattr(report_comparison, "comparison_figure", recording)
     folder = tmp_path / "scenario"
     folder.mkdir()
     obs = _observations(tight, 21)
@@ -259,6 +268,14 @@ def test_compare_command_writes_tables_figure_and_keeps_the_folder_on_failure(
     assert np.all(np.isfinite(models["log_evidence"]))
     text = (out / "comparison.md").read_text(encoding="utf-8")
     assert "## Verdicts" in text and "comparison.png" in text and "ln Z" in text
+    # figures carry no titles (journals set captions outside; common practice): the
+    # caption is in the markdown, every axis label ends with its unit in parentheses
+    assert "*Figure.* Delta chi-square of each step" in text and "(precession)" in text
+    assert len(drawn) == 1
+    for ax in drawn[0].axes:
+        assert not any(ax.get_title(loc) for loc in ("left", "center", "right"))
+        assert not ax.get_xlabel() or ax.get_xlabel().endswith(")")
+        assert not ax.get_ylabel() or ax.get_ylabel().endswith(")")
     assert "- mass: uniform on [" in text and "ln B vs simpler" in text
     assert (out / "models.tex").read_text(encoding="utf-8").count(r"\\") >= 9
     assert len(Table.read(out / "bootstrap.ecsv")) == 3

@@ -24,7 +24,7 @@ from astropy.table import Table
 
 from deepwell.core.parameters import EXTRA, SHARED
 from deepwell.core.version import __version__
-from deepwell.report.figures.comparison import comparison_figure
+from deepwell.report.figures.comparison import comparison_caption, comparison_figure
 from deepwell.report.figures.style import STYLE, save_figure
 
 from .tables import _tex_escape, _tex_unit, format_value_error
@@ -117,7 +117,8 @@ def comparison_markdown(comparison, figure=None):
     if comparison.notes:
         lines += ["", "## Notes", ""] + [f"- {n}" for n in comparison.notes]
     if figure:
-        lines += ["", f"![Delta chi-square per step against its bootstrap null]({figure})"]
+        lines += ["", f"![Delta chi-square per step against its bootstrap null]({figure})",
+                  "", f"*Figure.* {comparison_caption(comparison)}"]
     return "\n".join(lines) + "\n"
 
 

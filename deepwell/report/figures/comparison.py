@@ -17,7 +17,10 @@ from scipy import stats
 
 from .style import COLOUR, MODEL_COLOUR, PALETTE, new_figure
 
-__all__ = ["comparison_figure", "null_percentiles"]
+__all__ = ["comparison_figure", "comparison_caption", "null_percentiles"]
+
+#: Axis label of every Delta chi-square axis (a ratio of squares: no unit).
+DCHI2_LABEL = r"$\Delta\chi^2$ (dimensionless)"
 
 
 def null_percentiles(deltas, levels=(95.0, 99.73)):
@@ -50,10 +53,29 @@ def _null_panel(ax, test):
         ax.text(0.98, 0.5, f"observed\n{test.delta:.3g}", transform=ax.transAxes, ha="right",
                 va="bottom", color=COLOUR["vermillion"])
     ax.set_xlim(*span)
-    ax.set_title(test.key)
-    ax.set_xlabel("Delta chi-square")
+    ax.text(0.97, 0.95, test.key, transform=ax.transAxes, ha="right", va="top",
+            fontweight="bold")  # the panel's name inside it: figures carry no titles
+    ax.set_xlabel(DCHI2_LABEL)
     ax.set_yticks([])
     ax.legend(loc="upper left", fontsize=6.5)
+
+
+def comparison_caption(comparison):
+    """Caption of the figure (it carries no title: journals set captions outside it)."""
+    booted = [t.key for t in comparison.tests
+              if t.null_deltas is not None and t.null_deltas.size]
+    text = ("Delta chi-square of each step of the model ladder (simpler model minus the "
+            "model, symmetric-log axis).")
+    if booted:
+        text += (" Solid and dashed marks: the 95th and 99.73th percentiles of its bootstrap "
+                 "null (data simulated from the simpler model and refitted with both). "
+                 "Lower panels, one per bootstrapped step (" + ", ".join(booted) + "): the "
+                 "histogram of that null, the chi-square density of Wilks' theorem where the "
+                 "step adds free parameters, and the observed value (an arrow at the edge "
+                 "when it lies far beyond the null).")
+    else:
+        text += " No bootstrap was run: the significance rests on Wilks' theorem alone."
+    return text
 
 
 def comparison_figure(comparison):
@@ -79,9 +101,7 @@ def comparison_figure(comparison):
     ax.set_yscale("symlog", linthresh=1.0)
     ax.axhline(0.0, color=MODEL_COLOUR, lw=0.6)
     ax.set_xticks(x, [t.key for t in tests])
-    ax.set_ylabel("Delta chi-square (simpler - model)")
-    ax.set_title("Delta chi-square of each step" + (" against its bootstrap null" if booted
-                                                     else " (no bootstrap run)"))
+    ax.set_ylabel(r"$\chi^2_\mathrm{simpler} - \chi^2_\mathrm{model}$ (dimensionless)")
     ax.legend(loc="upper right", fontsize=7)
     for j, t in enumerate(booted):
         _null_panel(fig.add_subplot(grid[1, j]), t)
