@@ -18,6 +18,8 @@ from deepwell.core.errors import SettingsError
 from deepwell.core.parameters import SHARED
 from deepwell.fit.joint import build_model, fit_joint
 from deepwell.model.layout import internal_star_values
+from deepwell.report.robustness import robustness_markdown
+from deepwell.results.analysis import Analyses
 from deepwell.results.datasets import dataset_summary
 from deepwell.tables.datasets import datasets_from_args, parse_datasets
 from deepwell.tables.effects import effects_from_args
@@ -356,3 +358,20 @@ def test_figures_draw_with_data_set_terms_and_curves_match_the_reference_set(fit
     for stem in ("sky", *(f"star_{s}" for s in m.stars)):
         png = tmp_path / "figures" / f"{stem}.png"
         assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and stem in figs
+
+
+def test_report_reads_error_scales_of_small_sets_as_lower_limits(fits):
+    # The maximum-likelihood variance of n Gaussian numbers with p fitted parameters has
+    # mean (n - p)/n times the truth (the textbook bias of the ML variance; common
+    # practice), so a scale fitted on few numbers is read as a lower limit in report.md.
+    rows = dataset_summary(fits[1])
+    scaled = [r for r in rows if "scale" in r]
+    assert scaled
+    analyses = Analyses(effect_sizes={}, profile=None, datasets=rows, outliers=[])
+    text = robustness_markdown(analyses)
+    small = [r["dataset"] for r in scaled if r["n_numbers"] < 200]
+    assert small and "as a lower limit" in text
+    assert all(name in text for name in small)
+    big = [dict(r, n_numbers=10_000) for r in rows]
+    assert "as a lower limit" not in robustness_markdown(
+        Analyses(effect_sizes={}, profile=None, datasets=big, outliers=[]))
