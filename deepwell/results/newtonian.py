@@ -36,14 +36,7 @@ def relativistic_effects(effects):
         Some of "Rømer delay", "redshift (exact)" / "redshift (first-order)",
         "1PN precession", in that order.
     """
-    out = []
-    if effects.romer:
-        out.append("Rømer delay")
-    if effects.redshift != "off":
-        out.append(f"redshift ({effects.redshift})")
-    if effects.precession:
-        out.append("1PN precession")
-    return tuple(out)
+    return effects.relativistic()
 
 
 @dataclass(frozen=True)

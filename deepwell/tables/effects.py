@@ -73,15 +73,27 @@ class Effects:
         """Whether some stars may need the orbit integrator."""
         return self.precession or self.extended_mass
 
-    def describe(self):
-        """One line naming the modelled effects."""
+    def relativistic(self):
+        """Names of the relativistic pieces switched on, in the order Rømer, redshift, 1PN.
+
+        Returns
+        -------
+        tuple of str
+            Some of "Rømer delay", "redshift (exact)" / "redshift (first-order)",
+            "1PN precession".
+        """
         parts = []
         if self.romer:
-            parts.append("Romer delay")
+            parts.append("Rømer delay")
         if self.redshift != "off":
             parts.append(f"redshift ({self.redshift})")
         if self.precession:
             parts.append("1PN precession")
+        return tuple(parts)
+
+    def describe(self):
+        """One line naming the modelled effects."""
+        parts = list(self.relativistic())
         if self.extended_mass:
             parts.append(f"Plummer extended mass (b = {self.extended_scale:g} au)")
         return ", ".join(parts) if parts else "none (Newtonian, Keplerian orbits)"
